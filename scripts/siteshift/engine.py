@@ -1,0 +1,595 @@
+"""SRSH-PCM ground and excited states with PySCF.
+
+Pure functions over plain data: a molecule is given as element symbols and Å coordinates, settings as
+an :class:`ExciteSettings`; results are plain dictionaries ready for JSON.
+
+Physics
+- Ground state: Kohn–Sham with the SRSH functional (:mod:`siteshift.functional`) and, when
+  ε_static > 1, IEF-PCM (Cancès, Mennucci, Tomasi, JCP 107, 3032 (1997)) or C-PCM with ε_static.
+- Vertical excitations: linear response (TDA by default, Hirata & Head-Gordon CPL 314, 291 (1999);
+  full TDDFT as option) with *non-equilibrium* solvation: the continuum's fast part responds with
+  ε_optical (Cammi & Mennucci, JCP 110, 9877 (1999)). PySCF 2.14 replaces the excited-state dielectric
+  by 1.78 whatever the ground state used; here the response solvent is rebuilt with the ε_optical we
+  were given, and the value actually used is read back from the object and recorded.
+- Two response paths share the same ground state: ``stock`` (PySCF's TDA/TDDFT) and ``fast`` (an
+  MO-basis TDA built from density-fitted three-index tensors and a precomputed PCM surface
+  operator). Both solve the same equations; tests hold them within 1e-6 eV of each other.
+"""
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pyscf
+from pyscf import df, dft, gto, lib
+from pyscf.data import nist
+
+from .functional import SRSH
+
+HARTREE2EV = nist.HARTREE2EV
+AU2DEBYE = nist.AU2DEBYE
+#: λ[nm] = NM_EV / E[eV]  (h c / e in eV·nm, from CODATA constants through pyscf.data.nist)
+NM_EV = nist.PLANCK * nist.LIGHT_SPEED_SI / nist.E_CHARGE * 1e9
+
+PCM_METHODS = ("IEF-PCM", "C-PCM")
+
+
+class EngineError(RuntimeError):
+    """A calculation could not be set up or did not converge."""
+
+
+@dataclass
+class ExciteSettings:
+    """Every setting of one SRSH-PCM excited-state calculation (defaults: full-accuracy preset)."""
+
+    alpha: float = 0.2
+    omega: float = 0.2                   # bohr⁻¹
+    eps_static: float = 1.0              # ground-state continuum (1 = gas phase)
+    eps_optical: float = 1.0             # fast (electronic) continuum for vertical excitations
+    screen: str = "static"               # which ε sets α+β = 1/ε: "static" or "optical"
+    basis: str = "def2-svp"
+    auxbasis: str | None = None          # None: PySCF's automatic JK-fitting basis
+    density_fitting: bool = True
+    grid_level: int = 3
+    pcm_method: str = "IEF-PCM"
+    lebedev_order: int = 17              # surface points per atom sphere: 17 → 110
+    nstates: int = 4
+    tda: bool = True
+    equilibrium: bool = False            # equilibrium solvation of the excitations (ε_static)
+    solver: str = "fast"                 # "fast" (MO-basis TDA) or "stock" (PySCF TDA/TDDFT)
+    conv_tol: float = 1e-9               # SCF energy, Hartree
+    response_tol: float = 1e-6           # Davidson residual
+    max_memory_mb: int = 4000
+
+    def check(self) -> None:
+        if self.eps_static < 1.0 or self.eps_optical < 1.0:
+            raise EngineError(
+                f"dielectric constants must be >= 1 (eps_static={self.eps_static}, "
+                f"eps_optical={self.eps_optical}); set them in the dielectric model or override")
+        if self.eps_optical > self.eps_static + 1e-12:
+            raise EngineError(
+                f"eps_optical={self.eps_optical} exceeds eps_static={self.eps_static}: the fast "
+                "(electronic) response cannot screen more than the full static response")
+        if self.screen not in ("static", "optical"):
+            raise EngineError(f"screen must be 'static' or 'optical', got {self.screen!r}")
+        if self.pcm_method.upper() not in PCM_METHODS:
+            raise EngineError(f"pcm_method must be one of {PCM_METHODS}, got {self.pcm_method!r}")
+        if self.solver not in ("fast", "stock"):
+            raise EngineError(f"solver must be 'fast' or 'stock', got {self.solver!r}")
+        if self.nstates < 1:
+            raise EngineError(f"nstates must be >= 1, got {self.nstates}")
+
+    @property
+    def eps_screen(self) -> float:
+        return self.eps_static if self.screen == "static" else self.eps_optical
+
+    @property
+    def functional(self) -> SRSH:
+        return SRSH(self.alpha, self.omega, self.eps_screen)
+
+    @property
+    def solvated(self) -> bool:
+        return self.eps_static > 1.0
+
+
+# --------------------------------------------------------------------------------------------
+# molecule and ground state
+# --------------------------------------------------------------------------------------------
+
+def build_molecule(elements, coords_ang, charge=0, spin=0, basis="def2-svp", max_memory_mb=4000,
+                   verbose=0) -> gto.Mole:
+    """A PySCF molecule from element symbols and Å coordinates; spin = 2S (unpaired electrons)."""
+    coords = np.asarray(coords_ang, dtype=float).reshape(-1, 3)
+    if len(elements) != len(coords):
+        raise EngineError(f"{len(elements)} elements but {len(coords)} coordinates")
+    if len(elements) == 0:
+        raise EngineError("empty molecule")
+    atom = [(str(e).capitalize(), tuple(c)) for e, c in zip(elements, coords)]
+    mol = gto.Mole(atom=atom, basis=basis, charge=int(charge), spin=int(spin), unit="Angstrom",
+                   max_memory=max_memory_mb, verbose=verbose)
+    try:
+        mol.build()
+    except RuntimeError as exc:  # PySCF raises RuntimeError for impossible electron counts
+        raise EngineError(f"charge {charge} and spin {spin} are impossible for this molecule "
+                          f"({int(sum(gto.charge(e) for e in elements)) - int(charge)} electrons): "
+                          f"{exc}") from None
+    return mol
+
+
+def _attach_pcm(mf, settings: ExciteSettings, eps: float):
+    mf = mf.PCM()
+    mf.with_solvent.method = settings.pcm_method.upper()
+    mf.with_solvent.eps = float(eps)
+    mf.with_solvent.lebedev_order = settings.lebedev_order
+    return mf
+
+
+def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solvated=None):
+    """An (unrun) RKS/UKS object with the SRSH functional, DF and PCM as the settings say."""
+    functional = functional or settings.functional
+    mf = dft.RKS(mol) if mol.spin == 0 else dft.UKS(mol)
+    mf.xc = functional.xc
+    mf.grids.level = settings.grid_level
+    mf.conv_tol = settings.conv_tol
+    mf.max_memory = settings.max_memory_mb
+    if settings.density_fitting:
+        mf = mf.density_fit(auxbasis=settings.auxbasis)
+    if settings.solvated if solvated is None else solvated:
+        mf = _attach_pcm(mf, settings, settings.eps_static)
+    return mf
+
+
+#: The SCF fallback ladder: each step is tried from the previous step's density.
+SCF_LADDER = (
+    ("diis", {}),
+    ("level_shift+damping", {"level_shift": 0.3, "damp": 0.5, "diis_start_cycle": 4}),
+    ("second_order", None),
+)
+
+
+def run_scf(mf, dm0=None, log=None, max_cycle=100):
+    """Run an SCF through the fallback ladder; return (mf, step_name, cycles) or raise."""
+    dm = dm0
+    tried = []
+    for name, attrs in SCF_LADDER:
+        if attrs is None:
+            solver = mf.newton()
+        else:
+            solver = mf
+            for k, v in attrs.items():
+                setattr(solver, k, v)
+        solver.max_cycle = max_cycle
+        cycles = []
+        solver.callback = lambda env: cycles.append(env.get("cycle"))
+        solver.kernel(dm0=dm)
+        tried.append(name)
+        if log:
+            log(f"SCF step '{name}': converged={solver.converged} E={solver.e_tot:.10f} Eh "
+                f"after {len(cycles)} cycles")
+        if solver.converged:
+            return solver, name, len(cycles)
+        dm = solver.make_rdm1()
+    raise EngineError(f"SCF did not converge after the fallback ladder {tried}; try a smaller "
+                      "basis, a different charge/multiplicity, or check the geometry for clashes")
+
+
+def frontier_ev(mf):
+    """(HOMO, LUMO) orbital energies in eV (the α spin for open shells)."""
+    e = np.asarray(mf.mo_energy)
+    occ = np.asarray(mf.mo_occ)
+    if e.ndim == 2:
+        e, occ = e[0], occ[0]
+    homo = e[occ > 0].max()
+    lumo = e[occ == 0].min() if np.any(occ == 0) else np.nan
+    return homo * HARTREE2EV, lumo * HARTREE2EV
+
+
+# --------------------------------------------------------------------------------------------
+# excited states
+# --------------------------------------------------------------------------------------------
+
+def _response_solvent(mf, settings: ExciteSettings):
+    """The continuum that responds during a vertical excitation, with the ε we were given."""
+    sol = mf.with_solvent.copy()
+    sol.equilibrium_solvation = settings.equilibrium
+    sol.reset()
+    sol.eps = float(settings.eps_static if settings.equilibrium else settings.eps_optical)
+    sol.build()
+    return sol
+
+
+def stock_response(mf, settings: ExciteSettings):
+    """PySCF's own TDA/TDDFT on a converged ground state, with the ε_optical fix applied."""
+    td = mf.TDA() if settings.tda else mf.TDDFT()
+    td.nstates = settings.nstates
+    td.conv_tol = max(settings.response_tol ** 2, 1e-8)
+    eps_used = None
+    if hasattr(td, "with_solvent"):
+        td.with_solvent = _response_solvent(mf, settings)
+        eps_used = float(td.with_solvent.eps)
+    td.kernel()
+    if not all(np.atleast_1d(td.converged)):
+        raise EngineError("the response (Davidson) solver did not converge; raise nstates or "
+                          "loosen response_tol")
+    energies = np.asarray(td.e)
+    osc = np.asarray(td.oscillator_strength(gauge="length"))
+    tdip = np.asarray(td.transition_dipole())
+    pairs = []
+    for x, _y in td.xy:
+        x = np.asarray(x)
+        if x.ndim == 3 or isinstance(x, tuple):  # UKS: (xa, xb)
+            pairs.append(_dominant_pairs_uks(mf, x))
+        else:
+            pairs.append(_dominant_pairs(mf, x / np.linalg.norm(x)))
+    return energies, osc, tdip, pairs, eps_used
+
+
+class FastTDA:
+    """MO-basis TDA for closed-shell SRSH-PCM (singlet excitations).
+
+    A x = Δε x + 2 (ia|jb) x − [c_SR·(ij|ab) + c_LR·(ij|ab)_LR] x + f_xc x + 2 Vᵀ M V x
+
+    Coulomb and exchange blocks come from density-fitted three-index tensors in the MO basis,
+    (pq|rs) ≈ Σ_P B^P_pq B^P_rs; the long-range exchange uses the erf-attenuated tensor. The XC
+    kernel is PySCF's (``nr_rks_fxc_st``) on the ground-state grid. The PCM term uses the surface
+    potential integrals V_g,ia computed once, and M = ½(K⁻¹R + RᵀK⁻ᵀ) for ε_optical (or ε_static for
+    equilibrium solvation), which is the same operator PySCF applies in the AO basis.
+    """
+
+    def __init__(self, mf, settings: ExciteSettings, log=None):
+        if mf.mol.spin != 0:
+            raise EngineError("the fast response path is closed-shell only; use solver='stock' "
+                              "for open-shell pigments")
+        self.mf, self.settings, self.log = mf, settings, log or (lambda s: None)
+        mol = mf.mol
+        mo_occ = np.asarray(mf.mo_occ)
+        C = np.asarray(mf.mo_coeff)
+        e = np.asarray(mf.mo_energy)
+        self.orbo, self.orbv = C[:, mo_occ == 2], C[:, mo_occ == 0]
+        self.nocc, self.nvir = self.orbo.shape[1], self.orbv.shape[1]
+        self.e_ia = (e[mo_occ == 0][None, :] - e[mo_occ == 2][:, None])
+        ni = mf._numint
+        self.omega, self.c_lr, self.c_sr = ni.rsh_and_hybrid_coeff(mf.xc, mol.spin)
+        # exact exchange: hyb * K_full + (alpha - hyb) * K_LR  (PySCF's convention)
+        t0 = time.perf_counter()
+        self._build_df(mol)
+        t1 = time.perf_counter()
+        self.rho0, self.vxc, self.fxc = ni.cache_xc_kernel(mol, mf.grids, mf.xc, C, mo_occ, 1)
+        self.fxc = self.fxc * 0.5
+        t2 = time.perf_counter()
+        self.pcm_eps = None
+        self.V = None
+        if hasattr(mf, "with_solvent"):
+            self._build_pcm(mf, settings)
+        t3 = time.perf_counter()
+        self.log(f"fast TDA set-up: DF tensors {t1 - t0:.1f} s, XC kernel {t2 - t1:.1f} s, "
+                 f"PCM operator {t3 - t2:.1f} s (nocc={self.nocc}, nvir={self.nvir})")
+
+    def _auxbasis(self, mol):
+        aux = self.settings.auxbasis
+        if hasattr(self.mf, "with_df") and getattr(self.mf.with_df, "auxbasis", None):
+            aux = self.mf.with_df.auxbasis
+        return aux or df.make_auxbasis(mol, mp2fit=False)
+
+    def _mo_tensors(self, mol, auxbasis, omega=None):
+        if omega is None:
+            cderi = df.incore.cholesky_eri(mol, auxbasis=auxbasis, aosym="s2")
+        else:
+            with mol.with_range_coulomb(omega):
+                cderi = df.incore.cholesky_eri(mol, auxbasis=auxbasis, aosym="s2")
+        naux = cderi.shape[0]
+        nao = mol.nao
+        Bov = np.empty((naux, self.nocc, self.nvir))
+        Boo = np.empty((naux, self.nocc, self.nocc))
+        Bvv = np.empty((naux, self.nvir, self.nvir))
+        blk = max(1, int(2e8 // (nao * nao)))
+        for p0, p1 in lib.prange(0, naux, blk):
+            ao = lib.unpack_tril(cderi[p0:p1])
+            half_o = lib.einsum("Pmn,mi->Pin", ao, self.orbo)
+            Bov[p0:p1] = lib.einsum("Pin,na->Pia", half_o, self.orbv)
+            Boo[p0:p1] = lib.einsum("Pin,nj->Pij", half_o, self.orbo)
+            Bvv[p0:p1] = lib.einsum("Pmn,ma,nb->Pab", ao, self.orbv, self.orbv)
+        return Bov, Boo, Bvv
+
+    def _build_df(self, mol):
+        aux = self._auxbasis(mol)
+        self.Bov, self.Boo, self.Bvv = self._mo_tensors(mol, aux)
+        if self.omega != 0 and abs(self.c_lr - self.c_sr) > 0:
+            self.Lov, self.Loo, self.Lvv = self._mo_tensors(mol, aux, omega=self.omega)
+        else:
+            self.Loo = self.Lvv = None
+
+    def _build_pcm(self, mf, settings):
+        sol = _response_solvent(mf, settings)
+        self.pcm_eps = float(sol.eps)
+        K = sol._intermediates["K"]
+        R = sol._intermediates["R"]
+        KinvR = np.linalg.solve(K, R)
+        self.M = 0.5 * (KinvR + KinvR.T)
+        surf = sol.surface
+        mol = mf.mol
+        coords, expn = surf["grid_coords"], surf["charge_exp"]
+        ng = coords.shape[0]
+        nao = mol.nao
+        self.V = np.empty((ng, self.nocc, self.nvir))
+        intor = mol._add_suffix("int3c2e")
+        blk = max(50, int(2e8 // (nao * nao)))
+        for p0, p1 in lib.prange(0, ng, blk):
+            fake = gto.fakemol_for_charges(coords[p0:p1], expnt=expn[p0:p1] ** 2)
+            fake.cart = mol.cart
+            v = df.incore.aux_e2(mol, fake, intor=intor, aosym="s1")  # (nao, nao, ng)
+            half = lib.einsum("mnL,mi->Lin", v, self.orbo)
+            self.V[p0:p1] = lib.einsum("Lin,na->Lia", half, self.orbv)
+
+    def matvec(self, xs):
+        xs = np.asarray(xs).reshape(-1, self.nocc, self.nvir)
+        out = xs * self.e_ia
+        # Coulomb: 2 (ia|jb) x_jb
+        t = lib.einsum("Pjb,xjb->xP", self.Bov, xs)
+        out += 2.0 * lib.einsum("Pia,xP->xia", self.Bov, t)
+        # exact exchange: c (ij|ab) x_jb = Σ_P Σ_j B_ij (Σ_b B_ab x_jb)
+        for c, Boo, Bvv in ((self.c_sr, self.Boo, self.Bvv),
+                            (self.c_lr - self.c_sr, self.Loo, self.Lvv)):
+            if c == 0 or Boo is None:
+                continue
+            tmp = lib.einsum("Pab,xjb->xPja", Bvv, xs)
+            out -= c * lib.einsum("Pij,xPja->xia", Boo, tmp)
+        # XC kernel on the grid (AO basis, batched over trial vectors)
+        mf = self.mf
+        dms = lib.einsum("xov,qv,po->xpq", xs * 2, self.orbv, self.orbo)
+        v1 = mf._numint.nr_rks_fxc_st(mf.mol, mf.grids, mf.xc, None, dms, 0, True, self.rho0,
+                                      self.vxc, self.fxc,
+                                      max_memory=max(2000, self.settings.max_memory_mb * 0.5))
+        out += lib.einsum("xpq,po,qv->xov", v1, self.orbo, self.orbv)
+        # non-equilibrium PCM: 2 Vᵀ M V x
+        if self.V is not None:
+            vg = lib.einsum("gia,xia->xg", self.V, xs)
+            q = vg @ self.M.T
+            out += 2.0 * lib.einsum("gia,xg->xia", self.V, q)
+        return out.reshape(len(xs), -1)
+
+    def kernel(self, nstates):
+        hdiag = self.e_ia.ravel()
+        nov = hdiag.size
+        nroots = min(nstates, nov)
+        nguess = min(nov, max(nroots + 3, 2 * nroots))
+        order = np.argsort(hdiag)[:nguess]
+        x0 = np.zeros((nguess, nov))
+        x0[np.arange(nguess), order] = 1.0
+
+        def precond(r, e0, x0):
+            d = hdiag - (e0 - 1e-1)
+            d[abs(d) < 1e-8] = 1e-8
+            return r / d
+
+        tol = self.settings.response_tol
+        conv, e, x = lib.davidson1(lambda xs: list(self.matvec(xs)), list(x0), precond,
+                                   tol=tol ** 2, tol_residual=tol, nroots=nroots, max_cycle=100,
+                                   max_space=max(40, 12 * nroots), verbose=0)
+        if not all(conv):
+            raise EngineError("fast TDA Davidson did not converge; try solver='stock'")
+        xs = np.asarray(x).reshape(nroots, self.nocc, self.nvir)
+        return np.asarray(e), xs
+
+    def properties(self, e, xs):
+        """Oscillator strengths and transition dipoles (a.u.) of normalised singlet amplitudes."""
+        mol = self.mf.mol
+        with mol.with_common_orig((0.0, 0.0, 0.0)):
+            r_ao = mol.intor_symmetric("int1e_r", comp=3)
+        r_ov = lib.einsum("xmn,mi,na->xia", r_ao, self.orbo, self.orbv)
+        tdip = np.sqrt(2.0) * lib.einsum("xia,sia->sx", r_ov, xs)
+        osc = 2.0 / 3.0 * e * np.einsum("sx,sx->s", tdip, tdip)
+        return osc, tdip
+
+
+def fast_response(mf, settings: ExciteSettings, log=None):
+    if not settings.tda:
+        raise EngineError("the fast path solves TDA only; use solver='stock' for full TDDFT")
+    solver = FastTDA(mf, settings, log=log)
+    e, xs = solver.kernel(settings.nstates)
+    osc, tdip = solver.properties(e, xs)
+    pairs = [_dominant_pairs(mf, x) for x in xs]
+    return e, osc, tdip, pairs, solver.pcm_eps
+
+
+def _dominant_pairs(mf, x, threshold=0.05, top=4):
+    """Dominant occupied→virtual pairs of a normalised closed-shell amplitude (weight = x²)."""
+    occ = np.asarray(mf.mo_occ)
+    nocc = int((occ > 0).sum())
+    w = (np.asarray(x) ** 2).reshape(nocc, -1)
+    w = w / w.sum()
+    idx = np.argsort(w.ravel())[::-1][:top]
+    out = []
+    homo = nocc - 1
+    for k in idx:
+        i, a = divmod(int(k), w.shape[1])
+        if w.ravel()[k] < threshold:
+            break
+        out.append({"from": _orb_label(i, homo), "to": _orb_label(nocc + a, homo),
+                    "weight": round(float(w.ravel()[k]), 4)})
+    return out
+
+
+def _dominant_pairs_uks(mf, x, threshold=0.05, top=4):
+    out = []
+    for spin, xs in zip("ab", x):
+        occ = np.asarray(mf.mo_occ)[0 if spin == "a" else 1]
+        nocc = int((occ > 0).sum())
+        w = np.asarray(xs).reshape(nocc, -1) ** 2
+        for k in np.argsort(w.ravel())[::-1][:top]:
+            i, a = divmod(int(k), w.shape[1])
+            out.append((float(w.ravel()[k]), spin, i, nocc + a, nocc - 1))
+    total = sum(o[0] for o in out) or 1.0
+    out.sort(reverse=True)
+    return [{"from": _orb_label(i, h) + s, "to": _orb_label(a, h) + s,
+             "weight": round(wt / total, 4)}
+            for wt, s, i, a, h in out[:top] if wt / total >= threshold]
+
+
+def _orb_label(k, homo):
+    if k <= homo:
+        return "HOMO" if k == homo else f"HOMO-{homo - k}"
+    return "LUMO" if k == homo + 1 else f"LUMO+{k - homo - 1}"
+
+
+def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
+           log=None, dm0=None, band_axes=None, bright_threshold=0.01):
+    """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
+
+    band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
+    name tetrapyrrole bands; without them the lowest state with f ≥ bright_threshold is flagged
+    "bright".
+    """
+    settings = settings or ExciteSettings()
+    settings.check()
+    log = log or (lambda s: None)
+    timings = {}
+    functional = settings.functional
+    log(f"settings: {asdict(settings)}")
+    log(f"functional: {functional.as_dict()}")
+    t0 = time.perf_counter()
+    mol = build_molecule(elements, coords_ang, charge, spin, settings.basis,
+                         settings.max_memory_mb)
+    mf = make_scf(mol, settings, functional)
+    mf, step, cycles = run_scf(mf, dm0=dm0, log=log)
+    timings["scf"] = time.perf_counter() - t0
+    log(f"SCF converged with step '{step}' in {timings['scf']:.1f} s")
+    homo, lumo = frontier_ev(mf)
+
+    t1 = time.perf_counter()
+    solver = settings.solver if mol.spin == 0 and settings.tda else "stock"
+    if solver == "fast":
+        e, osc, tdip, pairs, eps_used = fast_response(mf, settings, log=log)
+    else:
+        e, osc, tdip, pairs, eps_used = stock_response(mf, settings)
+    timings["response"] = time.perf_counter() - t1
+    log(f"response ({solver}) in {timings['response']:.1f} s; continuum ε used = {eps_used}")
+    if settings.solvated:
+        expected = settings.eps_static if settings.equilibrium else settings.eps_optical
+        if eps_used is None or abs(eps_used - expected) > 1e-12:
+            raise EngineError(f"the response continuum used ε={eps_used}, not the requested "
+                              f"{expected}")
+
+    coords = np.asarray(coords_ang, dtype=float).reshape(-1, 3)
+    states = []
+    for k in range(len(e)):
+        e_ev = float(e[k] * HARTREE2EV)
+        mu = np.asarray(tdip[k]) * AU2DEBYE
+        states.append({
+            "index": k + 1,
+            "energy_ev": e_ev,
+            "wavelength_nm": NM_EV / e_ev,
+            "oscillator_strength": float(osc[k]),
+            "transition_dipole_debye": [float(v) for v in mu],
+            "transition_dipole_norm_debye": float(np.linalg.norm(mu)),
+            "pairs": pairs[k],
+            "band": None,
+        })
+    from .bands import assign_bands
+    assign_bands(states, coords, band_axes, bright_threshold)
+    result = {
+        "scf_energy_hartree": float(mf.e_tot),
+        "converged": bool(mf.converged),
+        "scf_step": step,
+        "scf_cycles": cycles,
+        "homo_ev": float(homo),
+        "lumo_ev": float(lumo),
+        "functional": functional.as_dict(),
+        "eps_static": settings.eps_static,
+        "eps_optical": settings.eps_optical,
+        "eps_screen": settings.eps_screen,
+        "eps_response_used": eps_used,
+        "solvation": ("none" if not settings.solvated else
+                      ("equilibrium" if settings.equilibrium else "nonequilibrium")),
+        "pcm_method": settings.pcm_method if settings.solvated else None,
+        "basis": settings.basis,
+        "nao": int(mol.nao),
+        "charge": int(charge),
+        "spin": int(spin),
+        "density_fitting": settings.density_fitting,
+        "auxbasis": (getattr(getattr(mf, "with_df", None), "auxbasis", None)
+                     or settings.auxbasis or ("auto" if settings.density_fitting else None)),
+        "grid_level": settings.grid_level,
+        "response": {"method": "TDA" if settings.tda else "TDDFT", "solver": solver,
+                     "nstates": settings.nstates},
+        "states": states,
+        "timings_s": {k: round(v, 3) for k, v in timings.items()},
+        "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__,
+                     "numpy": np.__version__},
+    }
+    return result
+
+
+# --------------------------------------------------------------------------------------------
+# optimal tuning of ω (ionization-potential theorem)
+# --------------------------------------------------------------------------------------------
+
+def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
+               bounds=(0.05, 0.6), xatol=0.01, include_anion=False, log=None):
+    """Gas-phase optimal tuning of ω: minimise J²(ω) = Σ_i (ε_HOMO(N+i) + IP(N+i))².
+
+    Stein, Kronik, Baer, JACS 131, 2818 (2009) (i = 0); Stein et al., PRL 105, 266802 (2010)
+    (i = 0, 1 with the anion). α is held fixed and α+β = 1 (gas phase). Returns a dictionary with
+    the tuned ω (bohr⁻¹), J at the optimum (eV), and every evaluation of the curve.
+    """
+    from scipy.optimize import minimize_scalar
+
+    settings = settings or ExciteSettings()
+    log = log or (lambda s: None)
+    mol0 = build_molecule(elements, coords_ang, charge, spin, settings.basis,
+                          settings.max_memory_mb)
+    mol_c = build_molecule(elements, coords_ang, charge + 1, (spin + 1) if spin == 0 else spin - 1,
+                           settings.basis, settings.max_memory_mb)
+    mol_a = (build_molecule(elements, coords_ang, charge - 1, spin + 1 if spin == 0 else spin - 1,
+                            settings.basis, settings.max_memory_mb) if include_anion else None)
+    dms = {}
+    curve = []
+
+    def energy(mol, key, omega):
+        mf = make_scf(mol, settings, SRSH(settings.alpha, omega, 1.0), solvated=False)
+        mf, _, _ = run_scf(mf, dm0=dms.get(key))
+        dms[key] = mf.make_rdm1()
+        return mf
+
+    def j2(omega):
+        t = time.perf_counter()
+        n = energy(mol0, "n", omega)
+        c = energy(mol_c, "c", omega)
+        ip = (c.e_tot - n.e_tot) * HARTREE2EV
+        homo_n = frontier_ev(n)[0]
+        j = (homo_n + ip) ** 2
+        rec = {"omega_bohr_inv": float(omega), "ip_ev": float(ip), "homo_ev": float(homo_n)}
+        if mol_a is not None:
+            a = energy(mol_a, "a", omega)
+            ea = (n.e_tot - a.e_tot) * HARTREE2EV
+            homo_a = frontier_ev(a)[0]
+            j += (homo_a + ea) ** 2
+            rec.update({"ea_ev": float(ea), "homo_anion_ev": float(homo_a)})
+        rec["j2_ev2"] = float(j)
+        rec["time_s"] = round(time.perf_counter() - t, 2)
+        curve.append(rec)
+        log(f"tune: omega={omega:.4f} bohr^-1  IP={ip:.4f} eV  -HOMO={-homo_n:.4f} eV  "
+            f"J^2={j:.5f} eV^2 ({rec['time_s']} s)")
+        return j
+
+    t0 = time.perf_counter()
+    res = minimize_scalar(j2, bounds=bounds, method="bounded", options={"xatol": xatol})
+    best = min(curve, key=lambda r: r["j2_ev2"])
+    edge = min(abs(best["omega_bohr_inv"] - b) for b in bounds)
+    return {
+        "omega_bohr_inv": float(res.x),
+        "j_ev": float(np.sqrt(res.fun)),
+        "alpha": settings.alpha,
+        "include_anion": include_anion,
+        "bounds_bohr_inv": list(bounds),
+        "xatol_bohr_inv": xatol,
+        "at_bound": bool(edge < 2 * xatol),
+        "basis": settings.basis,
+        "grid_level": settings.grid_level,
+        "evaluations": sorted(curve, key=lambda r: r["omega_bohr_inv"]),
+        "n_evaluations": len(curve),
+        "time_s": round(time.perf_counter() - t0, 2),
+        "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__},
+    }

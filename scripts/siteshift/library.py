@@ -1,0 +1,73 @@
+"""The pigment library: what siteshift knows about each pigment type, keyed by CCD code."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import yaml
+
+DEFAULT_LIBRARY = Path(__file__).resolve().parents[2] / "config" / "pigments.yaml"
+FAMILIES = ("tetrapyrrole", "heme", "flavin", "retinal", "phenolic", "other")
+
+
+class LibraryError(ValueError):
+    pass
+
+
+@dataclass(frozen=True)
+class PigmentType:
+    code: str
+    name: str
+    family: str
+    charge: int
+    multiplicity: int
+    core: tuple
+    cut_bonds: tuple = ()
+    band_axes: dict = field(default_factory=dict)
+    nstates: int = 4
+    axial_ligand_atoms: dict = field(default_factory=dict)
+
+    @property
+    def spin(self) -> int:
+        """2S, PySCF's `spin`."""
+        return self.multiplicity - 1
+
+
+def _entry(code: str, d: dict, source: str) -> PigmentType:
+    where = f"pigment library {source}, entry {code}"
+    missing = [k for k in ("family", "charge", "multiplicity", "core") if k not in d]
+    if missing:
+        raise LibraryError(f"{where}: missing key(s) {missing}")
+    if d["family"] not in FAMILIES:
+        raise LibraryError(f"{where}: family {d['family']!r} not one of {FAMILIES}")
+    if int(d["multiplicity"]) < 1:
+        raise LibraryError(f"{where}: multiplicity must be >= 1")
+    for b in d.get("cut_bonds", []) or []:
+        if len(b) != 2:
+            raise LibraryError(f"{where}: cut_bonds entries are [kept_atom, dropped_atom], got {b}")
+    axes = {k: tuple(v) for k, v in (d.get("band_axes") or {}).items()}
+    for k, v in axes.items():
+        if len(v) != 2:
+            raise LibraryError(f"{where}: band_axes.{k} must name two atoms, got {list(v)}")
+    return PigmentType(code=code, name=str(d.get("name", code)), family=d["family"],
+                       charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),
+                       core=tuple(d["core"]),
+                       cut_bonds=tuple(tuple(b) for b in d.get("cut_bonds", []) or []),
+                       band_axes=axes, nstates=int(d.get("nstates", 4)),
+                       axial_ligand_atoms={k: tuple(v) for k, v in
+                                           (d.get("axial_ligand_atoms") or {}).items()})
+
+
+def load_library(path=None, extra: dict | None = None) -> dict:
+    """Load the library file (default: config/pigments.yaml) and merge study-level entries.
+
+    extra: {CODE: {key: value}}; an entry for a known code updates only the keys it gives.
+    """
+    path = Path(path or DEFAULT_LIBRARY)
+    try:
+        raw = yaml.safe_load(path.read_text()) or {}
+    except FileNotFoundError:
+        raise LibraryError(f"pigment library {path} not found") from None
+    for code, upd in (extra or {}).items():
+        raw[code] = {**raw.get(code, {}), **(upd or {})}
+    return {code.upper(): _entry(code.upper(), d, str(path)) for code, d in raw.items()}

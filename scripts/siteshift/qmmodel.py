@@ -1,0 +1,216 @@
+"""QM models of pigments: CCD-matched atoms, tail truncation, hydrogens from the CCD, caps.
+
+Hydrogens come from the wwPDB Chemical Component Dictionary (offline copy shipped with biotite):
+each heavy atom's hydrogens are taken from the CCD ideal coordinates and carried onto the structure
+by a least-squares superposition (Kabsch, Acta Cryst. A32, 922 (1976)) of that atom and its bonded
+heavy neighbourhood, so each hydrogen keeps the CCD bond length and local geometry. Bonds cut by the
+library's truncation rules, or to tail atoms missing from the structure, are capped with hydrogen
+along the cut bond at a standard X–H length.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+
+#: X–H bond lengths for caps, Å (common practice; typical neutron/ideal values, from memory)
+CAP_LENGTH = {"C": 1.09, "N": 1.01, "O": 0.96, "S": 1.34, "P": 1.42}
+
+
+class ModelError(ValueError):
+    pass
+
+
+@lru_cache(maxsize=None)
+def ccd_residue(code: str):
+    """The CCD component (biotite AtomArray with bonds and ideal coordinates)."""
+    import biotite.structure.info as info
+    try:
+        arr = info.residue(code)
+    except KeyError:
+        raise ModelError(f"CCD code {code} is not in the Chemical Component Dictionary shipped "
+                         "with biotite") from None
+    return arr
+
+
+def ccd_graph(code: str):
+    """(names, elements, ideal coords Å, adjacency dict name -> set(names))."""
+    arr = ccd_residue(code)
+    names = [str(n) for n in arr.atom_name]
+    elements = [str(e).capitalize() for e in arr.element]
+    adj = {n: set() for n in names}
+    for i, j, _t in arr.bonds.as_array():
+        adj[names[i]].add(names[j])
+        adj[names[j]].add(names[i])
+    return names, elements, np.asarray(arr.coord, float), adj
+
+
+def formula(elements) -> str:
+    """Hill formula (C, H first, then alphabetical; metals as written)."""
+    c = Counter(str(e).capitalize() for e in elements)
+    order = [k for k in ("C", "H") if k in c] + sorted(k for k in c if k not in ("C", "H"))
+    parts = [f"{k}{c[k] if c[k] > 1 else ''}" for k in order]
+    return "".join(parts)
+
+
+def kabsch(P, Q):
+    """Rotation R and translation t minimising |(P R + t) − Q| (rows are points)."""
+    pc, qc = P.mean(0), Q.mean(0)
+    H = (P - pc).T @ (Q - qc)
+    U, _S, Vt = np.linalg.svd(H)
+    d = np.sign(np.linalg.det(U @ Vt))
+    D = np.diag([1.0, 1.0, d])
+    R = U @ D @ Vt
+    return R, qc - pc @ R
+
+
+@dataclass
+class QMModel:
+    pigment_id: str
+    code: str
+    elements: list
+    coords: np.ndarray            # Å
+    names: list                   # CCD atom names; hydrogens: CCD H names or CAP_<atom>
+    origin: list                  # "structure", "ccd_h", "cap"
+    charge: int
+    multiplicity: int
+    dropped: list = field(default_factory=list)
+    missing: list = field(default_factory=list)
+    problems: list = field(default_factory=list)
+
+    @property
+    def formula(self) -> str:
+        return formula(self.elements)
+
+    @property
+    def spin(self) -> int:
+        return self.multiplicity - 1
+
+    def index_of(self, name: str) -> int:
+        return self.names.index(name)
+
+    def to_xyz(self) -> str:
+        lines = [str(len(self.elements)),
+                 f"{self.pigment_id} {self.code} charge={self.charge} "
+                 f"multiplicity={self.multiplicity} formula={self.formula}"]
+        for e, n, (x, y, z) in zip(self.elements, self.names, self.coords):
+            lines.append(f"{e:<2s} {x:14.6f} {y:14.6f} {z:14.6f}   {n}")
+        return "\n".join(lines) + "\n"
+
+
+def electrons(elements, charge) -> int:
+    from pyscf.data.elements import charge as z
+    return int(sum(z(e) for e in elements)) - int(charge)
+
+
+def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, ptype,
+                   charge=None, multiplicity=None) -> QMModel:
+    """The QM model of one pigment residue.
+
+    atom_names / atom_elements / atom_coords: the pigment's atoms as read (hydrogens in the input
+    are discarded and rebuilt from the CCD). ptype: its :class:`siteshift.library.PigmentType`.
+    """
+    names, elements, ideal, adj = ccd_graph(code)
+    elem_of = dict(zip(names, elements))
+    ideal_of = dict(zip(names, ideal))
+    heavy = {n for n in names if elem_of[n] != "H"}
+    have = {}
+    unknown = []
+    for n, e, x in zip(atom_names, atom_elements, atom_coords):
+        n = str(n).strip()
+        if n in heavy:
+            have[n] = np.asarray(x, float)
+        elif n in elem_of or str(e).strip().upper() in ("H", "D"):
+            continue  # input hydrogens are rebuilt
+        else:
+            unknown.append(n)
+    missing_core = [a for a in ptype.core if a not in have]
+    if missing_core:
+        raise ModelError(f"pigment {pigment_id}: core atom(s) {missing_core} missing from the "
+                         "structure; rebuild them (e.g. from the CCD) or remove the pigment from "
+                         "the study")
+    # keep = component of the heavy-atom graph holding the core, after cutting library bonds
+    cut = {frozenset(b) for b in ptype.cut_bonds}
+    for b in ptype.cut_bonds:
+        for a in b:
+            if a not in heavy:
+                raise ModelError(f"pigment library entry {code}: cut bond atom {a} is not a CCD "
+                                 f"atom of {code}")
+    start = ptype.core[0]
+    keep, stack = {start}, [start]
+    while stack:
+        a = stack.pop()
+        for b in adj[a]:
+            if b in heavy and b not in keep and frozenset((a, b)) not in cut and b in have:
+                keep.add(b)
+                stack.append(b)
+    dropped = sorted(heavy - keep)
+    missing = sorted(n for n in heavy - set(have))
+    out_e, out_x, out_n, out_o = [], [], [], []
+    for n in names:
+        if n in keep:
+            out_e.append(elem_of[n]); out_x.append(have[n]); out_n.append(n)
+            out_o.append("structure")
+    problems = [f"atom {n} not in CCD {code}; ignored" for n in unknown]
+    for x_name in [n for n in names if n in keep]:
+        hs = [h for h in adj[x_name] if elem_of[h] == "H"]
+        heavy_nb = [b for b in adj[x_name] if b in heavy]
+        if hs:
+            ref = [x_name] + [b for b in heavy_nb if b in keep]
+            if len(ref) < 3:
+                for b in list(ref[1:]):
+                    ref += [c for c in adj[b] if c in keep and c not in ref]
+            if len(ref) < 3:
+                raise ModelError(f"pigment {pigment_id}: cannot place hydrogens on {x_name}: too "
+                                 "few bonded heavy atoms present")
+            P = np.array([ideal_of[r] for r in ref])
+            Q = np.array([have[r] for r in ref])
+            R, t = kabsch(P, Q)
+            for h in hs:
+                out_e.append("H"); out_x.append(ideal_of[h] @ R + t); out_n.append(h)
+                out_o.append("ccd_h")
+        for b in heavy_nb:
+            if b in keep:
+                continue
+            # cut or missing neighbour: cap along the bond
+            e_x = elem_of[x_name]
+            if e_x not in CAP_LENGTH:
+                problems.append(f"bond {x_name}-{b} cut at a {e_x} atom; left uncapped")
+                continue
+            if b in have:
+                v = have[b] - have[x_name]
+            else:  # missing atom: direction from the CCD, superposed locally
+                ref = [x_name] + [c for c in adj[x_name] if c in keep]
+                for c in list(ref[1:]):
+                    ref += [d for d in adj[c] if d in keep and d not in ref]
+                R, t = kabsch(np.array([ideal_of[r] for r in ref[:6]]),
+                              np.array([have[r] for r in ref[:6]]))
+                v = (ideal_of[b] @ R + t) - have[x_name]
+            v = v / np.linalg.norm(v)
+            out_e.append("H"); out_x.append(have[x_name] + CAP_LENGTH[e_x] * v)
+            out_n.append(f"CAP_{x_name}"); out_o.append("cap")
+    charge = ptype.charge if charge is None else int(charge)
+    mult = ptype.multiplicity if multiplicity is None else int(multiplicity)
+    nelec = electrons(out_e, charge)
+    if (nelec + mult - 1) % 2:
+        raise ModelError(f"pigment {pigment_id}: charge {charge} and multiplicity {mult} are "
+                         f"impossible for {formula(out_e)} ({nelec} electrons); fix the pigment "
+                         "library entry or the study's pigment override")
+    return QMModel(pigment_id, code, out_e, np.array(out_x), out_n, out_o, charge, mult,
+                   dropped=[d for d in dropped if d in have], missing=missing, problems=problems)
+
+
+def close_contacts(model: QMModel, threshold=0.9):
+    """Pairs (i, j, d) of a hydrogen and any other atom closer than `threshold` Å."""
+    x = model.coords
+    d = np.linalg.norm(x[:, None] - x[None], axis=-1)
+    out = []
+    for i, e in enumerate(model.elements):
+        if e != "H":
+            continue
+        for j in range(len(x)):
+            if j != i and d[i, j] < threshold:
+                out.append((i, j, float(d[i, j])))
+    return out
