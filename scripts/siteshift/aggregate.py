@@ -1,0 +1,125 @@
+"""Study tables: site energies, branch-to-branch shifts and variant-vs-reference shifts."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .engine import NM_EV
+from .io import read_json
+
+EV2CM1 = 8065.543937  # cm⁻¹ per eV (CODATA 2018 through h c / e)
+
+SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
+                "wavelength_nm", "oscillator_strength", "transition_dipole_debye",
+                "eps_static", "eps_optical", "eps_screen", "alpha", "omega_bohr_inv", "basis",
+                "response", "solvation", "qm_hash"]
+
+
+def site_rows(result: dict) -> list:
+    """Rows of one pigment: every named band (Qy, Qx or bright) and the lowest state S1."""
+    rows = []
+    states = sorted(result["states"], key=lambda s: s["energy_ev"])
+    picked = [(s["band"], s) for s in states if s.get("band")]
+    picked.append(("S1", states[0]))
+    f = result["functional"]
+    for band, s in picked:
+        rows.append({
+            "variant": result.get("variant"), "pigment_id": result["pigment_id"],
+            "ccd_code": result["ccd_code"], "chain": result["pigment_id"].split("_")[0],
+            "band": band, "state_index": s["index"], "energy_ev": s["energy_ev"],
+            "wavelength_nm": s["wavelength_nm"], "oscillator_strength": s["oscillator_strength"],
+            "transition_dipole_debye": s["transition_dipole_norm_debye"],
+            "eps_static": result["eps_static"], "eps_optical": result["eps_optical"],
+            "eps_screen": result["eps_screen"], "alpha": f["alpha"],
+            "omega_bohr_inv": f["omega_bohr_inv"], "basis": result["basis"],
+            "response": result["response"]["method"], "solvation": result["solvation"],
+            "qm_hash": result.get("qm_hash")})
+    return rows
+
+
+def site_energies(result_files) -> pd.DataFrame:
+    rows = []
+    for p in result_files:
+        rows += site_rows(read_json(p))
+    return pd.DataFrame(rows, columns=SITE_COLUMNS).sort_values(
+        ["variant", "pigment_id", "band"]).reset_index(drop=True)
+
+
+def auto_pairs(pigment_ids, chains=None):
+    """Pairs of same-type pigments on two chains with the same residue number (pseudo-symmetric
+    copies numbered alike). Returns [(name, a, b)]."""
+    parsed = {}
+    for pid in pigment_ids:
+        chain, rest = pid.split("_", 1)
+        parsed.setdefault(rest, {})[chain] = pid
+    pairs = []
+    for rest, by_chain in sorted(parsed.items()):
+        cs = [c for c in (chains or sorted(by_chain)) if c in by_chain]
+        if len(cs) >= 2:
+            pairs.append((f"{rest}:{cs[0]}-{cs[1]}", by_chain[cs[0]], by_chain[cs[1]]))
+    return pairs
+
+
+def branch_shifts(sites: pd.DataFrame, pairs) -> pd.DataFrame:
+    """ΔE = E(a) − E(b) per variant, pair and band; pairs: [(name, a, b)]."""
+    rows = []
+    for variant, sv in sites.groupby("variant", sort=True):
+        for name, a, b in pairs:
+            ea, eb = sv[sv.pigment_id == a], sv[sv.pigment_id == b]
+            if ea.empty or eb.empty:
+                rows.append({"variant": variant, "pair": name, "pigment_a": a, "pigment_b": b,
+                             "band": None, "status": "missing " + ("a" if ea.empty else "b")})
+                continue
+            for band in sorted(set(ea.band) & set(eb.band)):
+                ra, rb = ea[ea.band == band].iloc[0], eb[eb.band == band].iloc[0]
+                d = ra.energy_ev - rb.energy_ev
+                rows.append({"variant": variant, "pair": name, "pigment_a": a, "pigment_b": b,
+                             "band": band, "energy_a_ev": ra.energy_ev,
+                             "energy_b_ev": rb.energy_ev, "delta_ev": d,
+                             "delta_cm1": d * EV2CM1,
+                             "delta_nm": ra.wavelength_nm - rb.wavelength_nm,
+                             "redder": a if d < 0 else b,
+                             "eps_static_a": ra.eps_static, "eps_static_b": rb.eps_static,
+                             "omega_bohr_inv": ra.omega_bohr_inv, "basis": ra.basis,
+                             "status": "ok"})
+    return pd.DataFrame(rows)
+
+
+def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
+    """E(variant) − E(reference) per pigment and band; unmatched pigments reported."""
+    ref = sites[sites.variant == reference]
+    rows = []
+    for variant, sv in sites.groupby("variant", sort=True):
+        if variant == reference:
+            continue
+        ids = sorted(set(sv.pigment_id) | set(ref.pigment_id))
+        for pid in ids:
+            a, r = sv[sv.pigment_id == pid], ref[ref.pigment_id == pid]
+            if a.empty or r.empty:
+                rows.append({"variant": variant, "reference": reference, "pigment_id": pid,
+                             "band": None,
+                             "status": "only in reference" if a.empty else "only in variant"})
+                continue
+            for band in sorted(set(a.band) & set(r.band)):
+                va, vr = a[a.band == band].iloc[0], r[r.band == band].iloc[0]
+                d = va.energy_ev - vr.energy_ev
+                rows.append({"variant": variant, "reference": reference, "pigment_id": pid,
+                             "band": band, "energy_variant_ev": va.energy_ev,
+                             "energy_reference_ev": vr.energy_ev, "delta_ev": d,
+                             "delta_cm1": d * EV2CM1,
+                             "delta_nm": va.wavelength_nm - vr.wavelength_nm,
+                             "eps_static_variant": va.eps_static,
+                             "eps_static_reference": vr.eps_static,
+                             "same_qm_inputs": bool(va.qm_hash == vr.qm_hash), "status": "ok"})
+    return pd.DataFrame(rows)
+
+
+def spectrum(energies_ev, strengths, grid_ev, fwhm_ev=0.1):
+    """Gaussian-broadened stick spectrum (arbitrary units, Σ f · normalised Gaussian)."""
+    sig = fwhm_ev / (2 * np.sqrt(2 * np.log(2)))
+    g = np.asarray(grid_ev)[:, None]
+    return (np.asarray(strengths)[None] * np.exp(-0.5 * ((g - np.asarray(energies_ev)[None]) / sig)
+                                               ** 2) / (sig * np.sqrt(2 * np.pi))).sum(1)
+
+
+__all__ = ["site_energies", "branch_shifts", "variant_shifts", "auto_pairs", "spectrum", "NM_EV"]

@@ -1,0 +1,208 @@
+"""The stages of a study as plain functions over files; the Snakemake scripts call these."""
+from __future__ import annotations
+
+import logging
+import os
+import tempfile
+import time
+from dataclasses import asdict
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import io
+from .dielectric import DielectricModel
+from .engine import ExciteSettings, excite, tune_omega
+from .environment import EnvironmentSettings, environment_arrays, site_metrics
+from .inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
+from .library import load_library
+from .qmmodel import QMModel
+from .structure import StructureError, read_structure, residues_of
+
+log = logging.getLogger("siteshift")
+
+
+def setup_logging(path=None, level=logging.INFO):
+    """Log to a file (the rule's log) and stderr, with timestamps."""
+    root = logging.getLogger()
+    root.setLevel(level)
+    fmt = logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%H:%M:%S")
+    for h in list(root.handlers):
+        root.removeHandler(h)
+    hs = [logging.StreamHandler()]
+    if path:
+        Path(path).parent.mkdir(parents=True, exist_ok=True)
+        hs.append(logging.FileHandler(path, mode="w"))
+    for h in hs:
+        h.setFormatter(fmt)
+        root.addHandler(h)
+    logging.getLogger("MDAnalysis").setLevel(logging.WARNING)
+
+
+def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc="occupancy",
+                    overrides=None):
+    """Write the inventory table (and JSON) of one structure; return the rows."""
+    library = library or load_library()
+    atoms = read_structure(structure, altloc)
+    rows = take_inventory(atoms, library, overrides)
+    log.info("%s: %d atoms after altloc policy '%s'; %d pigment(s), %d unsupported ligand(s)",
+             structure, len(atoms), altloc, sum(r["status"] != "unsupported" for r in rows),
+             sum(r["status"] == "unsupported" for r in rows))
+    for r in rows:
+        log.info("  %-14s %-11s %-14s %s", r["pigment_id"], r["status"], r["formula_qm"],
+                 r["problems"])
+    df = pd.DataFrame(rows, columns=INVENTORY_COLUMNS)
+    io.write_tsv(out_tsv, df)
+    if out_json:
+        io.write_json(out_json, {"structure": str(structure), "altloc": altloc,
+                                 "n_atoms": len(atoms), "pigments": rows})
+    return rows
+
+
+def find_pigment(atoms, library, pigment_id):
+    pigs, _ = pigment_residues(atoms, library)
+    for r in pigs:
+        if r.id == pigment_id:
+            return r
+    raise StructureError(f"pigment {pigment_id} not found; present: {[p.id for p in pigs]}")
+
+
+def model_record(model: QMModel, ptype, structure) -> dict:
+    axes = {}
+    for band, (a, b) in (ptype.band_axes or {}).items():
+        if a in model.names and b in model.names:
+            axes[band] = [model.index_of(a), model.index_of(b)]
+    return {"pigment_id": model.pigment_id, "ccd_code": model.code, "structure": str(structure),
+            "charge": model.charge, "multiplicity": model.multiplicity, "formula": model.formula,
+            "n_atoms": len(model.elements), "elements": model.elements,
+            "coords_A": np.round(model.coords, 6).tolist(), "names": model.names,
+            "origin": model.origin, "dropped_atoms": model.dropped,
+            "missing_atoms": model.missing, "problems": model.problems, "band_axes": axes,
+            "nstates_default": ptype.nstates, "family": ptype.family}
+
+
+def _write_atoms(ag, path):
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.stem}.", suffix=path.suffix)
+    os.close(fd)
+    try:
+        ag.write(tmp)
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, library=None,
+                  altloc="occupancy", cutoff_A=6.0, overrides=None):
+    """QM model (XYZ + JSON record) and environment cluster (PDB) of one pigment."""
+    library = library or load_library()
+    atoms = read_structure(structure, altloc)
+    res = find_pigment(atoms, library, pigment_id)
+    model = model_for(res, library, overrides)
+    rec = model_record(model, library[res.code], structure)
+    io.atomic_write_text(out_xyz, model.to_xyz())
+    io.write_json(out_model, rec)
+    near = atoms.select_atoms(f"byres (around {cutoff_A} group pig)", pig=res.atoms)
+    cluster = res.atoms | near
+    flag = np.isin(cluster.indices, res.atoms.indices).astype(float)
+    try:
+        cluster.tempfactors = flag
+    except (AttributeError, ValueError):
+        cluster.universe.add_TopologyAttr("tempfactors")
+        cluster.tempfactors = flag
+    _write_atoms(cluster, out_cluster)
+    log.info("%s: QM model %s (%d atoms, charge %d, multiplicity %d; %d caps); cluster %d atoms "
+             "in %d residues within %.1f A (pigment flagged with B-factor 1.00)",
+             pigment_id, model.formula, len(model.elements), model.charge, model.multiplicity,
+             model.origin.count("cap"), len(cluster), len(cluster.residues), cutoff_A)
+    return rec
+
+
+def environment_stage(structure, model_json, out_json, settings: EnvironmentSettings,
+                      model: DielectricModel, altloc="occupancy", library=None):
+    """Metrics of one site and its dielectric assignment (JSON)."""
+    library = library or load_library()
+    rec = io.read_json(model_json)
+    atoms = read_structure(structure, altloc)
+    res = find_pigment(atoms, library, rec["pigment_id"])
+    mask = np.isin(atoms.indices, res.atoms.indices)
+    env = environment_arrays(atoms, mask)
+    heavy = [i for i, (e, o) in enumerate(zip(rec["elements"], rec["origin"]))
+             if e != "H" and o == "structure"]
+    coords = np.asarray(rec["coords_A"])[heavy]
+    elements = [rec["elements"][i] for i in heavy]
+    t0 = time.perf_counter()
+    metrics = site_metrics(coords, elements, env, settings)
+    diel = model.assign(rec["pigment_id"], metrics)
+    out = {"pigment_id": rec["pigment_id"], "ccd_code": rec["ccd_code"], "metrics": metrics,
+           "dielectric": diel, "environment_settings": asdict(settings),
+           "dielectric_model": asdict(model), "time_s": round(time.perf_counter() - t0, 3)}
+    io.write_json(out_json, out)
+    log.info("%s: eps_static=%.3f eps_optical=%.3f (%s); burial %.2f, hydropathy %.2f, "
+             "%d polar atoms, %d charged groups, %d waters", rec["pigment_id"],
+             diel["eps_static"], diel["eps_optical"], diel["source"], metrics["burial"],
+             metrics["hydropathy_kd"], metrics["n_polar_atoms"], metrics["n_charged_groups"],
+             metrics["n_waters"])
+    return out
+
+
+def tune_stage(model_json, out_json, settings: ExciteSettings, xatol=0.01, bounds=(0.05, 0.6),
+               include_anion=False):
+    rec = io.read_json(model_json)
+    log.info("tuning omega for %s on %s (%s, alpha=%.3f, gas phase)", rec["ccd_code"],
+             rec["pigment_id"], settings.basis, settings.alpha)
+    res = tune_omega(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
+                     settings, bounds=tuple(bounds), xatol=xatol, include_anion=include_anion,
+                     log=log.info)
+    res.update(ccd_code=rec["ccd_code"], tuned_on=rec["pigment_id"])
+    if res["at_bound"]:
+        log.warning("tuned omega %.4f lies at the search bound %s; widen qm.tune.bounds",
+                    res["omega_bohr_inv"], bounds)
+    io.write_json(out_json, res)
+    log.info("tuned omega = %.4f bohr^-1 (J = %.4f eV) after %d evaluations in %.1f s",
+             res["omega_bohr_inv"], res["j_ev"], res["n_evaluations"], res["time_s"])
+    return res
+
+
+def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
+                 cache_dir=None, variant=None):
+    """Excited states of one pigment; results are cached by a hash of every QM input."""
+    from .settings import qm_settings
+    rec = io.read_json(model_json)
+    env = io.read_json(environment_json)
+    diel = env["dielectric"]
+    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    settings = qm_settings(qm, diel["eps_static"], diel["eps_optical"], omega,
+                           rec.get("nstates_default"))
+    if qm.get("gas_phase"):
+        settings.eps_static = settings.eps_optical = 1.0
+    key = {"elements": rec["elements"], "coords_A": rec["coords_A"], "charge": rec["charge"],
+           "multiplicity": rec["multiplicity"], "band_axes": rec["band_axes"],
+           "settings": asdict(settings)}
+    h = io.stable_hash(key)
+    cached = Path(cache_dir) / f"{h}.json" if cache_dir else None
+    if cached is not None and cached.exists():
+        result = io.read_json(cached)
+        log.info("%s: QM inputs unchanged (hash %s); reusing %s", rec["pigment_id"], h, cached)
+        result["cache"] = "reused"
+    else:
+        log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
+                 "alpha=%.2f, %d states (hash %s)", rec["pigment_id"], settings.basis,
+                 settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
+                 settings.alpha, settings.nstates, h)
+        result = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
+                        settings, log=log.info, band_axes=rec["band_axes"] or None)
+        result["cache"] = "computed"
+        if cached is not None:
+            io.write_json(cached, result)
+    result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
+                  qm_hash=h, dielectric_source=diel["source"],
+                  tuning=str(tuning_json) if tuning_json else "fixed")
+    io.write_json(out_json, result)
+    for s in result["states"]:
+        log.info("  S%d %.4f eV %.1f nm f=%.4f %s", s["index"], s["energy_ev"],
+                 s["wavelength_nm"], s["oscillator_strength"], s["band"] or "")
+    return result
