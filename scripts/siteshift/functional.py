@@ -32,6 +32,8 @@ class SRSH:
     eps_screen: float = 1.0
 
     def __post_init__(self):
+        for k in ("alpha", "omega", "eps_screen"):
+            object.__setattr__(self, k, float(getattr(self, k)))
         if not 0.0 <= self.alpha <= 1.0:
             raise ValueError(f"SRSH alpha must lie in [0, 1], got {self.alpha}")
         if self.omega <= 0.0:
@@ -50,7 +52,7 @@ class SRSH:
     @property
     def xc(self) -> str:
         """The PySCF/libxc xc string of this functional."""
-        a, b, w = self.alpha, self.beta, self.omega
+        a, b, w = float(self.alpha), float(self.beta), float(self.omega)
         ab = a + b
         return (f"{a!r}*SR_HF({w!r}) + {ab!r}*LR_HF({w!r}) + {b!r}*HJS_PBE "
                 f"+ {1.0 - a - b!r}*PBE, PBE")

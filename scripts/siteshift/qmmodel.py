@@ -157,37 +157,32 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     for x_name in [n for n in names if n in keep]:
         hs = [h for h in adj[x_name] if elem_of[h] == "H"]
         heavy_nb = [b for b in adj[x_name] if b in heavy]
-        if hs:
-            ref = [x_name] + [b for b in heavy_nb if b in keep]
-            if len(ref) < 3:
-                for b in list(ref[1:]):
-                    ref += [c for c in adj[b] if c in keep and c not in ref]
-            if len(ref) < 3:
-                raise ModelError(f"pigment {pigment_id}: cannot place hydrogens on {x_name}: too "
-                                 "few bonded heavy atoms present")
-            P = np.array([ideal_of[r] for r in ref])
-            Q = np.array([have[r] for r in ref])
-            R, t = kabsch(P, Q)
-            for h in hs:
-                out_e.append("H"); out_x.append(ideal_of[h] @ R + t); out_n.append(h)
-                out_o.append("ccd_h")
+        # local frame: the atom, its bonded heavy atoms present in the structure (dropped tail
+        # atoms too, so hydrogens follow the structure's torsions), then second neighbours
+        ref = [x_name] + [b for b in heavy_nb if b in have]
+        for b in list(ref[1:]):
+            if len(ref) >= 4:
+                break
+            ref += [c for c in adj[b] if c in have and c not in ref]
+        if len(ref) < 3:
+            raise ModelError(f"pigment {pigment_id}: cannot place hydrogens on {x_name}: too "
+                             "few bonded heavy atoms present")
+        R, t = kabsch(np.array([ideal_of[r] for r in ref]), np.array([have[r] for r in ref]))
+        for h in hs:
+            # direction from the superposition, length exactly the CCD's X–H bond
+            v = (ideal_of[h] @ R + t) - have[x_name]
+            d = np.linalg.norm(ideal_of[h] - ideal_of[x_name])
+            out_e.append("H"); out_x.append(have[x_name] + d * v / np.linalg.norm(v))
+            out_n.append(h); out_o.append("ccd_h")
         for b in heavy_nb:
             if b in keep:
                 continue
-            # cut or missing neighbour: cap along the bond
+            # cut or missing neighbour: cap along the bond (the CCD direction if it is missing)
             e_x = elem_of[x_name]
             if e_x not in CAP_LENGTH:
                 problems.append(f"bond {x_name}-{b} cut at a {e_x} atom; left uncapped")
                 continue
-            if b in have:
-                v = have[b] - have[x_name]
-            else:  # missing atom: direction from the CCD, superposed locally
-                ref = [x_name] + [c for c in adj[x_name] if c in keep]
-                for c in list(ref[1:]):
-                    ref += [d for d in adj[c] if d in keep and d not in ref]
-                R, t = kabsch(np.array([ideal_of[r] for r in ref[:6]]),
-                              np.array([have[r] for r in ref[:6]]))
-                v = (ideal_of[b] @ R + t) - have[x_name]
+            v = (have[b] if b in have else ideal_of[b] @ R + t) - have[x_name]
             v = v / np.linalg.norm(v)
             out_e.append("H"); out_x.append(have[x_name] + CAP_LENGTH[e_x] * v)
             out_n.append(f"CAP_{x_name}"); out_o.append("cap")

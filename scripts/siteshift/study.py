@@ -167,6 +167,29 @@ def tune_stage(model_json, out_json, settings: ExciteSettings, xatol=0.01, bound
     return res
 
 
+class _hash_lock:
+    """Exclusive lock on a cache entry, so two jobs with the same QM inputs compute it once
+    (the second waits and then reuses the first's result)."""
+
+    def __init__(self, cached):
+        self.path = None if cached is None else Path(str(cached) + ".lock")
+
+    def __enter__(self):
+        if self.path is not None:
+            import fcntl
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            self.fh = open(self.path, "w")
+            fcntl.flock(self.fh, fcntl.LOCK_EX)
+        return self
+
+    def __exit__(self, *exc):
+        if self.path is not None:
+            import fcntl
+            fcntl.flock(self.fh, fcntl.LOCK_UN)
+            self.fh.close()
+        return False
+
+
 def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
                  cache_dir=None, variant=None):
     """Excited states of one pigment; results are cached by a hash of every QM input."""
@@ -184,20 +207,23 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
            "settings": asdict(settings)}
     h = io.stable_hash(key)
     cached = Path(cache_dir) / f"{h}.json" if cache_dir else None
-    if cached is not None and cached.exists():
-        result = io.read_json(cached)
-        log.info("%s: QM inputs unchanged (hash %s); reusing %s", rec["pigment_id"], h, cached)
-        result["cache"] = "reused"
-    else:
-        log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
-                 "alpha=%.2f, %d states (hash %s)", rec["pigment_id"], settings.basis,
-                 settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
-                 settings.alpha, settings.nstates, h)
-        result = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
-                        settings, log=log.info, band_axes=rec["band_axes"] or None)
-        result["cache"] = "computed"
-        if cached is not None:
-            io.write_json(cached, result)
+    with _hash_lock(cached):
+        if cached is not None and cached.exists():
+            result = io.read_json(cached)
+            log.info("%s: QM inputs unchanged (hash %s); reusing %s", rec["pigment_id"], h,
+                     cached)
+            result["cache"] = "reused"
+        else:
+            log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
+                     "alpha=%.2f, %d states (hash %s)", rec["pigment_id"], settings.basis,
+                     settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
+                     settings.alpha, settings.nstates, h)
+            result = excite(rec["elements"], rec["coords_A"], rec["charge"],
+                            rec["multiplicity"] - 1, settings, log=log.info,
+                            band_axes=rec["band_axes"] or None)
+            result["cache"] = "computed"
+            if cached is not None:
+                io.write_json(cached, result)
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                   qm_hash=h, dielectric_source=diel["source"],
                   tuning=str(tuning_json) if tuning_json else "fixed")
@@ -206,3 +232,45 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
         log.info("  S%d %.4f eV %.1f nm f=%.4f %s", s["index"], s["energy_ev"],
                  s["wavelength_nm"], s["oscillator_strength"], s["band"] or "")
     return result
+
+
+def environment_table(environment_files, out_tsv):
+    """One row per site: metrics, dielectric constants and each term's contribution."""
+    rows = []
+    for p in environment_files:
+        d = io.read_json(p)
+        variant = Path(p).parts[-4] if len(Path(p).parts) >= 4 else ""
+        row = {"variant": variant, "pigment_id": d["pigment_id"], "ccd_code": d["ccd_code"]}
+        row.update({k: v for k, v in d["metrics"].items()})
+        row.update({k: v for k, v in d["dielectric"].items() if k != "pigment_id"})
+        rows.append(row)
+    df = pd.DataFrame(rows)
+    io.write_tsv(out_tsv, df)
+    log.info("environment table: %d sites -> %s", len(df), out_tsv)
+    return df
+
+
+def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None):
+    from .aggregate import auto_pairs, branch_shifts, site_energies, variant_shifts
+    sites = site_energies(result_files)
+    branches = branches or {}
+    pairs = [tuple(p) for p in branches.get("pairs", [])]
+    if branches.get("auto"):
+        known = {(a, b) for _n, a, b in pairs}
+        pairs += [p for p in auto_pairs(sorted(set(sites.pigment_id)))
+                  if (p[1], p[2]) not in known]
+    for _n, a, b in pairs:
+        for pid in (a, b):
+            if pid not in set(sites.pigment_id):
+                log.warning("branch pair pigment %s has no result in any variant", pid)
+    br = branch_shifts(sites, pairs)
+    vs = variant_shifts(sites, reference)
+    io.write_tsv(out_sites, sites)
+    io.write_tsv(out_branches, br)
+    io.write_tsv(out_variants, vs)
+    log.info("site energies: %d rows; branch shifts: %d rows; variant shifts: %d rows",
+             len(sites), len(br), len(vs))
+    if not vs.empty and "status" in vs:
+        for _i, r in vs[vs.status != "ok"].iterrows():
+            log.warning("variant %s: pigment %s %s", r.variant, r.pigment_id, r.status)
+    return sites, br, vs

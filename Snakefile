@@ -1,0 +1,33 @@
+# siteshift: site energies of protein-embedded pigments (SRSH-PCM), as a Snakemake workflow.
+from snakemake.utils import min_version, validate
+
+min_version("8.0")
+
+
+configfile: "config/config.yaml"
+
+
+validate(config, "config/schemas/config.schema.yaml")
+
+
+include: "rules/common.smk"
+include: "rules/inventory.smk"
+include: "rules/extract.smk"
+include: "rules/environment.smk"
+include: "rules/excite.smk"
+include: "rules/aggregate.smk"
+
+
+rule all:
+    input:
+        f"{RESULTS}/tables/site_energies.tsv",
+        f"{RESULTS}/tables/branch_shifts.tsv",
+        f"{RESULTS}/tables/variant_shifts.tsv",
+        f"{RESULTS}/tables/environment.tsv",
+        f"{RESULTS}/plots/site_energies.png",
+        f"{RESULTS}/plots/spectrum.png",
+
+
+rule inventories:
+    input:
+        expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),

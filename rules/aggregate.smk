@@ -1,0 +1,54 @@
+rule tabulate_shifts:
+    input:
+        inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
+        excitations=all_excitations,
+    output:
+        sites=report(
+            f"{RESULTS}/tables/site_energies.tsv",
+            caption="../config/report/site_energies.rst",
+            category="Tables",
+        ),
+        branches=report(
+            f"{RESULTS}/tables/branch_shifts.tsv",
+            caption="../config/report/branch_shifts.rst",
+            category="Tables",
+        ),
+        variants=report(
+            f"{RESULTS}/tables/variant_shifts.tsv",
+            caption="../config/report/variant_shifts.rst",
+            category="Tables",
+        ),
+    log:
+        f"{LOGS}/tabulate_shifts/all.log",
+    params:
+        reference=REFERENCE,
+        branches=config.get("branches", {}),
+    script:
+        "../scripts/tabulate_shifts.py"
+
+
+rule plot_study:
+    input:
+        sites=f"{RESULTS}/tables/site_energies.tsv",
+        variants=f"{RESULTS}/tables/variant_shifts.tsv",
+        excitations=all_excitations,
+    output:
+        sites=report(
+            f"{RESULTS}/plots/site_energies.png",
+            caption="../config/report/plot_sites.rst",
+            category="Plots",
+        ),
+        sites_svg=f"{RESULTS}/plots/site_energies.svg",
+        spectrum=report(
+            f"{RESULTS}/plots/spectrum.png",
+            caption="../config/report/plot_spectrum.rst",
+            category="Plots",
+        ),
+        spectrum_svg=f"{RESULTS}/plots/spectrum.svg",
+    log:
+        f"{LOGS}/plot_study/all.log",
+    params:
+        fwhm=config.get("plots", {}).get("spectrum_fwhm_ev", 0.15),
+        reference=REFERENCE,
+    script:
+        "../scripts/plot_study.py"

@@ -1,0 +1,85 @@
+# Helpers and input functions shared by the rules.
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(workflow.basedir) / "scripts"))
+
+from siteshift.config import check_config  # noqa: E402
+
+check_config(config, Path.cwd())
+
+RESULTS = "results"
+LOGS = "logs"
+VARIANTS = sorted(config["variants"])
+REFERENCE = config["reference"]
+QM = config.get("qm", {})
+
+
+wildcard_constraints:
+    variant="[A-Za-z0-9][A-Za-z0-9._-]*",
+    pigment="[A-Za-z0-9]+_[A-Z0-9]{1,5}-?[0-9]+[A-Za-z]?",
+    code="[A-Z0-9]{1,5}",
+
+
+def structure_of(wildcards):
+    return config["variants"][wildcards.variant]["structure"]
+
+
+def inventory_rows(variant):
+    """Pigment rows (status ok, codes selected) of a variant, read after the checkpoint."""
+    import pandas as pd
+
+    path = checkpoints.take_inventory.get(variant=variant).output.tsv
+    df = pd.read_csv(path, sep="\t", keep_default_na=False)
+    df = df[df.status == "ok"]
+    codes = config.get("pigment_codes") or []
+    if codes:
+        df = df[df.ccd_code.isin(codes)]
+    return df
+
+
+def pigments_of(variant):
+    return list(inventory_rows(variant).pigment_id)
+
+
+def code_of(variant, pigment):
+    """CCD code of a pigment, from the inventory (ids alone are ambiguous: codes hold digits)."""
+    df = inventory_rows(variant)
+    return df[df.pigment_id == pigment].ccd_code.iloc[0]
+
+
+def tuning_model(wildcards):
+    """The QM model that ω is tuned on: first pigment of that type in the reference variant."""
+    df = inventory_rows(REFERENCE)
+    ids = list(df[df.ccd_code == wildcards.code].pigment_id)
+    if not ids:
+        raise ValueError(
+            f"no pigment of type {wildcards.code} in the reference variant {REFERENCE}; "
+            "set qm.omega or add the pigment to the reference")
+    return f"{RESULTS}/{REFERENCE}/pigments/{ids[0]}/qm_model.json"
+
+
+def tuning_input(wildcards):
+    if QM.get("omega"):
+        return []
+    return f"{RESULTS}/tuning/{code_of(wildcards.variant, wildcards.pigment)}.json"
+
+
+def all_excitations(wildcards):
+    return [
+        f"{RESULTS}/{v}/pigments/{p}/excited_states.json"
+        for v in VARIANTS
+        for p in pigments_of(v)
+    ]
+
+
+def all_environments(wildcards):
+    return [
+        f"{RESULTS}/{v}/pigments/{p}/environment.json"
+        for v in VARIANTS
+        for p in pigments_of(v)
+    ]
+
+
+def qm_mem_mb(wildcards, attempt):
+    return int(QM.get("max_memory_mb", 4000) * 1.5 * attempt)

@@ -1,0 +1,33 @@
+rule measure_environment:
+    input:
+        structure=structure_of,
+        model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
+    output:
+        json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/environment.json",
+    log:
+        f"{LOGS}/measure_environment/{{variant}}/{{pigment}}.log",
+    benchmark:
+        "benchmarks/measure_environment/{variant}/{pigment}.tsv"
+    params:
+        altloc=config.get("altloc", "occupancy"),
+        pigments=config.get("pigments", {}),
+        environment=config.get("environment", {}),
+        dielectric=config.get("dielectric", {}),
+    script:
+        "../scripts/measure_environment.py"
+
+
+rule tabulate_environment:
+    input:
+        inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
+        environments=all_environments,
+    output:
+        report(
+            f"{RESULTS}/tables/environment.tsv",
+            caption="../config/report/environment.rst",
+            category="Environment and dielectric",
+        ),
+    log:
+        f"{LOGS}/tabulate_environment/all.log",
+    script:
+        "../scripts/tabulate_environment.py"

@@ -1,0 +1,39 @@
+rule tune_omega:
+    input:
+        model=tuning_model,
+    output:
+        json=f"{RESULTS}/tuning/{{code}}.json",
+    log:
+        f"{LOGS}/tune_omega/{{code}}.log",
+    benchmark:
+        "benchmarks/tune_omega/{code}.tsv"
+    threads: QM.get("threads", 1)
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=120,
+    params:
+        qm=QM,
+    script:
+        "../scripts/tune_omega.py"
+
+
+rule excite_pigment:
+    input:
+        model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
+        environment=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/environment.json",
+        tuning=tuning_input,
+    output:
+        json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/excited_states.json",
+    log:
+        f"{LOGS}/excite_pigment/{{variant}}/{{pigment}}.log",
+    benchmark:
+        "benchmarks/excite_pigment/{variant}/{pigment}.tsv"
+    threads: QM.get("threads", 1)
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=240,
+    params:
+        qm=QM,
+        cache=f"{RESULTS}/qm_cache",
+    script:
+        "../scripts/excite_pigment.py"

@@ -1,0 +1,16 @@
+checkpoint take_inventory:
+    input:
+        structure=structure_of,
+    output:
+        tsv=f"{RESULTS}/{{variant}}/inventory.tsv",
+        json=f"{RESULTS}/{{variant}}/inventory.json",
+    log:
+        f"{LOGS}/take_inventory/{{variant}}.log",
+    benchmark:
+        "benchmarks/take_inventory/{variant}.tsv"
+    params:
+        altloc=config.get("altloc", "occupancy"),
+        pigments=config.get("pigments", {}),
+        overrides=config.get("pigment_overrides", {}),
+    script:
+        "../scripts/take_inventory.py"

@@ -1,0 +1,10 @@
+"""Snakemake script: environment metrics and effective dielectric of one pigment site."""
+from siteshift.library import load_library
+from siteshift.settings import dielectric_model, environment_settings
+from siteshift.study import environment_stage, setup_logging
+
+sm = snakemake  # noqa: F821
+setup_logging(sm.log[0])
+environment_stage(sm.input.structure, sm.input.model, sm.output.json,
+                  environment_settings(sm.params.environment), dielectric_model(sm.params.dielectric),
+                  altloc=sm.params.altloc, library=load_library(extra=sm.params.pigments))

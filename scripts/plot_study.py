@@ -1,0 +1,9 @@
+"""Snakemake script: site-energy and simulated-spectrum plots (PNG and SVG)."""
+from siteshift.plots import plot_site_energies, plot_spectra
+from siteshift.study import setup_logging
+
+sm = snakemake  # noqa: F821
+setup_logging(sm.log[0])
+plot_site_energies(sm.input.sites, sm.output.sites, sm.output.sites_svg)
+plot_spectra(list(sm.input.excitations), sm.output.spectrum, sm.output.spectrum_svg,
+             fwhm_ev=sm.params.fwhm)

@@ -1,0 +1,65 @@
+"""Study plots (matplotlib, headless): site energies and simulated absorption spectra."""
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+
+from .aggregate import spectrum  # noqa: E402
+from .engine import NM_EV  # noqa: E402
+from .io import read_json  # noqa: E402
+
+
+def plot_site_energies(sites_tsv, out_png, out_svg=None):
+    df = pd.read_csv(sites_tsv, sep="\t")
+    df = df[df.band != "S1"] if (df.band != "S1").any() else df
+    variants = sorted(df.variant.unique())
+    pigments = sorted(df.pigment_id.unique())
+    fig, ax = plt.subplots(figsize=(max(4, 1.2 * len(pigments) + 2), 3.6))
+    width = 0.8 / max(1, len(variants))
+    for k, v in enumerate(variants):
+        sv = df[df.variant == v]
+        for band, marker in zip(sorted(sv.band.unique()), "osD^v"):
+            sb = sv[sv.band == band]
+            x = [pigments.index(p) + (k - (len(variants) - 1) / 2) * width for p in sb.pigment_id]
+            ax.scatter(x, sb.energy_ev, marker=marker, label=f"{v} {band}", zorder=3)
+    ax.set_xticks(range(len(pigments)), pigments, rotation=30, ha="right")
+    ax.set_ylabel("site energy (eV)")
+    ax.grid(axis="y", alpha=0.3)
+    ax.legend(fontsize=8, frameon=False)
+    fig.tight_layout()
+    fig.savefig(out_png, dpi=150)
+    if out_svg:
+        fig.savefig(out_svg)
+    plt.close(fig)
+
+
+def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
+    by_variant = {}
+    for p in result_files:
+        r = read_json(p)
+        for s in r["states"]:
+            by_variant.setdefault(r.get("variant") or "", []).append(
+                (s["energy_ev"], s["oscillator_strength"]))
+    allE = [e for v in by_variant.values() for e, _f in v]
+    grid = np.linspace(min(allE) - 4 * fwhm_ev, max(allE) + 4 * fwhm_ev, 800)
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4))
+    for v, sticks in sorted(by_variant.items()):
+        e, f = np.array(sticks).T
+        y = spectrum(e, f, grid, fwhm_ev)
+        a1.plot(grid, y, label=v)
+        a2.plot(NM_EV / grid, y, label=v)
+    a1.set_xlabel("energy (eV)")
+    a2.set_xlabel("wavelength (nm)")
+    for a in (a1, a2):
+        a.set_ylabel("absorbance (arb. units)")
+        a.legend(fontsize=8, frameon=False)
+    fig.suptitle(f"Simulated absorption (Gaussian FWHM {fwhm_ev} eV)", fontsize=9)
+    fig.tight_layout()
+    fig.savefig(out_png, dpi=150)
+    if out_svg:
+        fig.savefig(out_svg)
+    plt.close(fig)

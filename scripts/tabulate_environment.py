@@ -1,0 +1,6 @@
+"""Snakemake script: one table of environment metrics and dielectrics for every site."""
+from siteshift.study import environment_table, setup_logging
+
+sm = snakemake  # noqa: F821
+setup_logging(sm.log[0])
+environment_table(list(sm.input.environments), sm.output[0])

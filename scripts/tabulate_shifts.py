@@ -1,0 +1,7 @@
+"""Snakemake script: site-energy, branch-shift and variant-shift tables."""
+from siteshift.study import setup_logging, shift_tables
+
+sm = snakemake  # noqa: F821
+setup_logging(sm.log[0])
+shift_tables(list(sm.input.excitations), sm.output.sites, sm.output.branches, sm.output.variants,
+             reference=sm.params.reference, branches=sm.params.branches)

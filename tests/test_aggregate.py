@@ -1,0 +1,76 @@
+"""Study tables from per-pigment results (synthetic results with known answers)."""
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from siteshift.aggregate import (EV2CM1, auto_pairs, branch_shifts, site_energies, spectrum,
+                                 variant_shifts)
+from siteshift.engine import NM_EV
+
+
+def _result(tmp_path, variant, pid, energies, f, h="h"):
+    states = [{"index": i + 1, "energy_ev": e, "wavelength_nm": NM_EV / e,
+               "oscillator_strength": ff, "transition_dipole_debye": [1.0, 0, 0],
+               "transition_dipole_norm_debye": 1.0, "band": None}
+              for i, (e, ff) in enumerate(zip(energies, f))]
+    bright = min((s for s in states if s["oscillator_strength"] >= 0.01),
+                 key=lambda s: s["energy_ev"])
+    bright["band"] = "bright"
+    r = {"variant": variant, "pigment_id": pid, "ccd_code": "HC4", "states": states,
+         "functional": {"alpha": 0.2, "omega_bohr_inv": 0.25}, "eps_static": 4.0,
+         "eps_optical": 2.0, "eps_screen": 4.0, "basis": "6-31g",
+         "response": {"method": "TDA"}, "solvation": "nonequilibrium", "qm_hash": h}
+    p = tmp_path / f"{variant}_{pid}.json"
+    p.write_text(json.dumps(r))
+    return p
+
+
+@pytest.fixture
+def sites(tmp_path):
+    files = [_result(tmp_path, "wt", "A_HC4101", [4.0, 4.3], [0.001, 0.9], "a"),
+             _result(tmp_path, "wt", "B_HC4101", [4.1, 4.2], [0.5, 0.1], "b"),
+             _result(tmp_path, "mut", "A_HC4101", [3.9, 4.25], [0.002, 0.8], "c"),
+             _result(tmp_path, "mut", "B_HC4101", [4.1, 4.2], [0.5, 0.1], "b")]
+    return site_energies(files)
+
+
+def test_site_rows(sites):
+    wt_a = sites[(sites.variant == "wt") & (sites.pigment_id == "A_HC4101")]
+    assert set(wt_a.band) == {"bright", "S1"}
+    assert wt_a[wt_a.band == "bright"].energy_ev.item() == 4.3
+
+
+def test_branch_shift_values(sites):
+    br = branch_shifts(sites, [("pocket", "A_HC4101", "B_HC4101")])
+    row = br[(br.variant == "wt") & (br.band == "bright")].iloc[0]
+    assert row.delta_ev == pytest.approx(4.3 - 4.1)
+    assert row.delta_cm1 == pytest.approx(0.2 * EV2CM1)
+    assert row.delta_nm == pytest.approx(NM_EV / 4.3 - NM_EV / 4.1)
+    assert row.redder == "B_HC4101"
+
+
+def test_variant_shifts_and_unchanged_inputs(sites):
+    vs = variant_shifts(sites, "wt")
+    a = vs[(vs.pigment_id == "A_HC4101") & (vs.band == "bright")].iloc[0]
+    assert a.delta_ev == pytest.approx(-0.05) and not a.same_qm_inputs
+    b = vs[(vs.pigment_id == "B_HC4101") & (vs.band == "bright")].iloc[0]
+    assert b.delta_ev == 0 and b.same_qm_inputs
+
+
+def test_unmatched_pigment_reported(tmp_path, sites):
+    extra = site_energies([_result(tmp_path, "mut", "C_HC4101", [4.0], [0.3])])
+    vs = variant_shifts(pd.concat([sites, extra]), "wt")
+    assert "only in variant" in set(vs.status)
+
+
+def test_auto_pairs():
+    assert auto_pairs(["A_BCL302", "B_BCL302", "A_BPH401", "M_BPH401", "A_HEM9"]) == [
+        ("BCL302:A-B", "A_BCL302", "B_BCL302"), ("BPH401:A-M", "A_BPH401", "M_BPH401")]
+
+
+def test_spectrum_integrates_to_total_strength():
+    grid = np.linspace(0, 10, 20001)
+    y = spectrum([3.0, 5.0], [0.4, 0.6], grid, fwhm_ev=0.2)
+    assert np.trapezoid(y, grid) == pytest.approx(1.0, rel=1e-6)

@@ -1,0 +1,180 @@
+"""Pigments from real and invented structures: inventory, QM models, hydrogens, bad inputs."""
+import gzip
+from collections import Counter
+
+import numpy as np
+import pytest
+
+from siteshift.inventory import take_inventory
+from siteshift.qmmodel import (ModelError, build_qm_model, ccd_graph, ccd_residue,
+                               close_contacts, formula, kabsch)
+from siteshift.structure import StructureError, read_structure
+
+
+def _ccd_truncated_formula(code, ptype):
+    """Formula expected from the CCD alone: CCD atoms on the core side of the library's cut bonds
+    (hydrogens on kept heavy atoms), plus one cap H per cut bond. Independent of the builder."""
+    names, elements, _x, adj = ccd_graph(code)
+    el = dict(zip(names, elements))
+    cut = {frozenset(b) for b in ptype.cut_bonds}
+    keep, stack = {ptype.core[0]}, [ptype.core[0]]
+    while stack:
+        a = stack.pop()
+        for b in adj[a]:
+            if el[b] != "H" and b not in keep and frozenset((a, b)) not in cut:
+                keep.add(b)
+                stack.append(b)
+    hs = [h for h in names if el[h] == "H" and any(n in keep for n in adj[h])]
+    return formula([el[n] for n in keep] + ["H"] * (len(hs) + len(ptype.cut_bonds)))
+
+
+# --- PDB entry 19HC (nine-heme cytochrome c; REFERENCES.md "Open structures for tests") -------
+
+@pytest.fixture(scope="module")
+def hc19(hc19_path):
+    return read_structure(hc19_path)
+
+
+def test_19hc_altlocs(hc19_path, hc19):
+    # 19HC: 6098 ATOM/HETATM records; the occupancy policy keeps one altloc per residue.
+    # Independent count from the raw file: records minus those of non-kept altloc labels.
+    lines = [l for l in gzip.open(hc19_path, "rt") if l.startswith(("ATOM", "HETATM"))]
+    assert len(lines) == 6098
+    alt = Counter(l[16] for l in lines if l[16] != " ")
+    assert set(alt) == {"A", "B"}
+    # every altloc residue of 19HC has A at occupancy >= B, so policy "occupancy" keeps A
+    assert len(hc19) == 6098 - alt["B"] == 6021
+
+
+def test_19hc_inventory(hc19, library):
+    rows = take_inventory(hc19, library)
+    hemes = [r for r in rows if r["ccd_code"] == "HEM"]
+    assert len(hemes) == 18  # 19HC: 18 HEM, 9 per chain (RCSB entry description)
+    assert {r["chain"] for r in hemes} == {"A", "B"}
+    assert sum(r["chain"] == "A" for r in hemes) == 9
+    assert len({r["pigment_id"] for r in hemes}) == 18
+    expected = _ccd_truncated_formula("HEM", library["HEM"])
+    assert expected == "C30H28FeN4"
+    for r in hemes:
+        assert r["status"] == "ok", r
+        assert r["formula_qm"] == expected
+        assert r["charge"] == 0 and r["multiplicity"] == 1
+
+
+def test_19hc_models_sane_geometry(hc19, library):
+    from siteshift.inventory import model_for, pigment_residues
+    pigs, _ = pigment_residues(hc19, library)
+    for res in pigs[:4]:
+        m = model_for(res, library)
+        assert not close_contacts(m, 0.9), res.id
+        # each H sits 0.95–1.12 Å from its nearest heavy atom (CCD / cap bond lengths)
+        x = m.coords
+        heavy = x[[e != "H" for e in m.elements]]
+        for e, xi in zip(m.elements, x):
+            if e == "H":
+                assert 0.95 < np.linalg.norm(heavy - xi, axis=1).min() < 1.12
+
+
+def test_mmcif_and_pdb_give_same_inventory(tmp_path, hc19_path, library):
+    gemmi = pytest.importorskip("gemmi")
+    st = gemmi.read_structure(str(hc19_path))
+    st.setup_entities()
+    cif = tmp_path / "19hc.cif"
+    st.make_mmcif_document().write_file(str(cif))
+    a = take_inventory(read_structure(hc19_path), library)
+    b = take_inventory(read_structure(cif), library)
+    key = lambda rows: [(r["pigment_id"], r["formula_qm"], r["n_atoms_read"]) for r in rows
+                        if r["status"] == "ok"]
+    assert key(a) == key(b)
+
+
+# --- CCD ideal coordinates: hydrogens rebuilt ---------------------------------------------
+
+def _random_pose(x, seed):
+    rng = np.random.default_rng(seed)
+    q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    if np.linalg.det(q) < 0:
+        q[:, 0] *= -1
+    return x @ q.T + rng.normal(size=3) * 10, q
+
+
+@pytest.mark.parametrize("code", ["BCL", "CLA", "HEM", "FMN", "RET"])
+def test_ccd_hydrogens_come_back(code, library):
+    # wwPDB CCD (biotite's offline copy): strip H, move rigidly, rebuild; every CCD-derived H
+    # must land within 0.2 Å of the CCD position (moved the same way), formula as the CCD gives.
+    arr = ccd_residue(code)
+    heavy = arr[arr.element != "H"]
+    moved, q = _random_pose(np.asarray(heavy.coord, float), seed=len(code))
+    m = build_qm_model(f"X_{code}1", code, heavy.atom_name, heavy.element, moved, library[code])
+    assert m.formula == _ccd_truncated_formula(code, library[code])
+    ref = {str(n): c for n, c in zip(arr.atom_name, arr.coord)}
+    R, t = kabsch(np.asarray(heavy.coord, float), moved)
+    for n, x, o in zip(m.names, m.coords, m.origin):
+        if o == "ccd_h":
+            assert np.linalg.norm(x - (ref[n] @ R + t)) < 0.2
+    assert not close_contacts(m, 0.9)
+
+
+def test_bcl_model_size(library):
+    # BCL with the phytyl cut to a methyl: 85 atoms (C36H38MgN4O6), as used in the speed issue
+    arr = ccd_residue("BCL")
+    heavy = arr[arr.element != "H"]
+    m = build_qm_model("A_BCL1", "BCL", heavy.atom_name, heavy.element, heavy.coord,
+                       library["BCL"])
+    assert len(m.elements) == 85 and m.formula == "C36H38MgN4O6"
+
+
+def test_perturbed_heavy_atoms_still_place_h_close(library):
+    arr = ccd_residue("CLA")
+    heavy = arr[arr.element != "H"]
+    rng = np.random.default_rng(1)
+    x = np.asarray(heavy.coord, float) + rng.normal(scale=0.03, size=(len(heavy), 3))
+    m = build_qm_model("A_CLA1", "CLA", heavy.atom_name, heavy.element, x, library["CLA"])
+    ref = {str(n): c for n, c in zip(arr.atom_name, arr.coord)}
+    dev = [np.linalg.norm(xx - ref[n]) for n, xx, o in zip(m.names, m.coords, m.origin)
+           if o == "ccd_h"]
+    assert max(dev) < 0.2
+
+
+# --- bad inputs ---------------------------------------------------------------------------
+
+def test_missing_core_atom_is_named(library):
+    arr = ccd_residue("BCL")
+    heavy = arr[(arr.element != "H") & (arr.atom_name != "NB")]
+    with pytest.raises(ModelError, match=r"A_BCL7.*NB"):
+        build_qm_model("A_BCL7", "BCL", heavy.atom_name, heavy.element, heavy.coord,
+                       library["BCL"])
+
+
+def test_impossible_charge_spin(library):
+    arr = ccd_residue("HC4")
+    heavy = arr[arr.element != "H"]
+    with pytest.raises(ModelError, match="impossible"):
+        build_qm_model("A_HC41", "HC4", heavy.atom_name, heavy.element, heavy.coord,
+                       library["HC4"], charge=0, multiplicity=2)
+
+
+def test_unknown_ligand_is_listed_unsupported(tmp_path, library):
+    arr = ccd_residue("HC4")
+    lines = []
+    for k, (n, e, x) in enumerate(zip(arr.atom_name, arr.element, arr.coord), 1):
+        lines.append(f"HETATM{k:5d} {n:<4s} XYZ A 501    {x[0]:8.3f}{x[1]:8.3f}{x[2]:8.3f}"
+                     f"  1.00  0.00          {e:>2s}")
+    p = tmp_path / "lig.pdb"
+    p.write_text("\n".join(lines) + "\nEND\n")
+    rows = take_inventory(read_structure(p), library)
+    assert [r["status"] for r in rows] == ["unsupported"]
+    assert "not in the pigment library" in rows[0]["problems"]
+
+
+def test_empty_and_non_structure_files(tmp_path):
+    empty = tmp_path / "empty.pdb"
+    empty.write_text("END\n")
+    with pytest.raises(StructureError, match="empty.pdb"):
+        read_structure(empty)
+    junk = tmp_path / "notes.txt"
+    junk.write_text("hello")
+    with pytest.raises(StructureError, match="unknown structure format"):
+        read_structure(junk)
+    with pytest.raises(StructureError, match="does not exist"):
+        read_structure(tmp_path / "nope.pdb")

@@ -1,0 +1,95 @@
+"""End to end: the whole Snakemake DAG on a tiny study in a temporary directory."""
+import shutil
+import subprocess
+import sys
+
+import pandas as pd
+import pytest
+import yaml
+
+
+def _tiny_config(root, **qm):
+    cfg = yaml.safe_load((root / "config/config.yaml").read_text())
+    cfg["variants"] = {
+        "wt": {"structure": str(root / "config/demo/pcd2_wt.pdb")},
+        "A_I6E": {"structure": str(root / "config/demo/pcd2_A_I6E.pdb"), "parent": "wt"},
+    }
+    cfg["qm"].update({"preset": "demo", "basis": "sto-3g", "grid_level": 0, "lebedev_order": 5,
+                      "nstates": 2, "omega": 0.25, **qm})
+    return cfg
+
+
+def _snakemake(root, workdir, *args):
+    cmd = [sys.executable, "-m", "snakemake", "-s", str(root / "Snakefile"), "--directory",
+           str(workdir), "--cores", "2", *args]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=1500)
+
+
+@pytest.fixture(scope="module")
+def study(root, tmp_path_factory):
+    work = tmp_path_factory.mktemp("study")
+    (work / "config").mkdir()
+    (work / "config/config.yaml").write_text(yaml.safe_dump(_tiny_config(root)))
+    p = _snakemake(root, work)
+    assert p.returncode == 0, p.stderr[-4000:]
+    return work
+
+
+def test_dry_run_and_lint(root, tmp_path):
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(_tiny_config(root)))
+    p = _snakemake(root, tmp_path, "-n")
+    assert p.returncode == 0, p.stderr[-3000:]
+    p = _snakemake(root, tmp_path, "--lint")
+    assert "error" not in (p.stdout + p.stderr).lower() or p.returncode == 0, p.stdout[-3000:]
+
+
+def test_bad_config_stops_before_jobs(root, tmp_path):
+    cfg = _tiny_config(root)
+    cfg["dielectric"]["mode"] = "sometimes"
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path, "-n")
+    assert p.returncode != 0
+    assert "sometimes" in p.stderr and "mode" in p.stderr
+    assert not (tmp_path / "results").exists()
+
+
+def test_tables_have_sensible_contents(study):
+    sites = pd.read_csv(study / "results/tables/site_energies.tsv", sep="\t")
+    assert set(sites.variant) == {"wt", "A_I6E"}
+    assert set(sites.pigment_id) == {"A_HC4101", "B_HC4101"}
+    # HC4 (neutral p-coumaric acid) absorbs in the UV; STO-3G puts the bright π→π* high, so the
+    # bound here is the broad 3–7 eV window (our own sanity range for a minimal basis)
+    assert sites.energy_ev.between(3.0, 7.0).all()
+    assert (sites.oscillator_strength >= 0).all()
+    env = pd.read_csv(study / "results/tables/environment.tsv", sep="\t")
+    wt = env[env.variant == "wt"].set_index("pigment_id")
+    # the polar pocket (chain B: Asn/Gln/Glu + waters) is screened more than the apolar one
+    assert wt.loc["B_HC4101", "eps_static"] > wt.loc["A_HC4101", "eps_static"]
+    assert (env.eps_optical <= env.eps_static).all()
+    br = pd.read_csv(study / "results/tables/branch_shifts.tsv", sep="\t")
+    row = br[(br.variant == "wt") & (br.band == "S1")].iloc[0]
+    assert row.delta_ev != 0 and abs(row.delta_ev) < 1.0
+    vs = pd.read_csv(study / "results/tables/variant_shifts.tsv", sep="\t")
+    b = vs[(vs.pigment_id == "B_HC4101")]
+    a = vs[(vs.pigment_id == "A_HC4101")]
+    assert b.same_qm_inputs.all() and (b.delta_ev == 0).all()
+    assert not a.same_qm_inputs.any() and (a.delta_ev != 0).all()
+
+
+def test_outputs_for_inspection(study):
+    pig = study / "results/wt/pigments/A_HC4101"
+    xyz = (pig / "qm_model.xyz").read_text().splitlines()
+    assert int(xyz[0]) == 20 and "formula=C9H8O3" in xyz[1]
+    cluster = (pig / "cluster.pdb").read_text()
+    assert "HC4" in cluster and "PHE" in cluster
+    assert (study / "results/plots/spectrum.png").stat().st_size > 1000
+    logs = list((study / "logs").rglob("*.log"))
+    assert any("excite_pigment" in str(p) for p in logs)
+    # the unchanged pigment was computed once and reused for the mutant
+    import json
+    m = json.loads((study / "results/A_I6E/pigments/B_HC4101/excited_states.json").read_text())
+    w = json.loads((study / "results/wt/pigments/B_HC4101/excited_states.json").read_text())
+    assert m["qm_hash"] == w["qm_hash"]
+    assert {m["cache"], w["cache"]} == {"computed", "reused"}
