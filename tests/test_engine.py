@@ -60,25 +60,42 @@ def ch2o_pcm():
 def test_fast_equals_stock_with_pcm(ch2o_pcm):
     # Our MO-basis TDA against PySCF's own TDA on the same PCM ground state (< 1 meV asked;
     # both solve the same equations, so we hold them to 1e-5 eV and f to 1e-5).
+    # PySCF's Davidson guesses can miss a low root of a symmetric molecule, so it is asked for
+    # more states and the lowest ones are compared.
     mf, s = ch2o_pcm
     e1, f1, *_ , eps1 = fast_response(mf, s)
-    e2, f2, *_ , eps2 = stock_response(mf, s)
+    more = ExciteSettings(**{**s.__dict__, "nstates": 6})
+    e2, f2, *_ , eps2 = stock_response(mf, more)
     assert eps1 == eps2 == 2.0
-    assert np.max(np.abs(e1 - e2)) * HARTREE2EV < 1e-5
-    assert np.max(np.abs(f1 - f2)) < 1e-5
+    assert np.max(np.abs(e1 - e2[:3])) * HARTREE2EV < 1e-5
+    assert np.max(np.abs(f1 - f2[:3])) < 1e-5
 
 
-def test_iterative_equals_dense_gas_phase():
-    # Dense diagonalisation of PySCF's A matrix (td.get_ab) vs the iterative fast solver.
+def test_iterative_equals_dense_own_operator(ch2o_pcm):
+    # Our Davidson against dense diagonalisation of the same (PCM) response matrix, built column
+    # by column from the matrix-vector product.
+    mf, s = ch2o_pcm
+    solver = FastTDA(mf, s)
+    n = solver.nocc * solver.nvir
+    A = solver.matvec(np.eye(n)).T
+    assert np.allclose(A, A.T, atol=1e-10)  # TDA matrix is symmetric
+    dense = np.linalg.eigvalsh(A)[:3]
+    e, _x = solver.kernel(3)
+    assert np.max(np.abs(e - dense)) * HARTREE2EV < 1e-6
+
+
+def test_stock_iterative_equals_dense_get_ab():
+    # PySCF's dense A matrix (td.get_ab, exact integrals) against the engine's stock iterative
+    # route on the same ground state (no density fitting so both use the same integrals).
     s = ExciteSettings(alpha=0.2, omega=0.3, basis="6-31g", grid_level=1, nstates=4,
-                       response_tol=1e-8)
+                       density_fitting=False, solver="stock")
     mol = build_molecule(*CH2O, basis="6-31g")
     mf, _, _ = run_scf(make_scf(mol, s))
-    e_fast, *_ = fast_response(mf, s)
+    e_it, *_ = stock_response(mf, ExciteSettings(**{**s.__dict__, "nstates": 8}))
     a, _b = mf.TDA().get_ab()
     nocc, nvir = a.shape[:2]
     dense = np.linalg.eigvalsh(a.reshape(nocc * nvir, nocc * nvir))[:4]
-    assert np.max(np.abs(e_fast - dense)) * HARTREE2EV < 1e-6
+    assert np.max(np.abs(np.sort(e_it)[:4] - dense)) * HARTREE2EV < 1e-6
 
 
 def test_optical_dielectric_is_the_one_used(ch2o_pcm):
@@ -93,10 +110,10 @@ def test_optical_dielectric_is_the_one_used(ch2o_pcm):
     assert used == 1.5
     assert np.max(np.abs(e20 - e15)) * HARTREE2EV > 1e-4
     gas_td = mf.undo_solvent().TDA()
-    gas_td.nstates = 3
-    gas_td.conv_tol = 1e-10
+    gas_td.nstates = 6  # PySCF's guesses can miss a root of this symmetric molecule
+    gas_td.conv_tol = 1e-8
     gas_td.kernel()
-    assert np.max(np.abs(np.sort(gas_td.e) - np.sort(e10))) * HARTREE2EV < 1e-5
+    assert np.max(np.abs(np.sort(gas_td.e)[:3] - np.sort(e10))) * HARTREE2EV < 1e-5
     # the stock path through the engine records the value it used
     *_, eps_stock = stock_response(mf, s15)
     assert eps_stock == 1.5

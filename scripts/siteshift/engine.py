@@ -204,7 +204,7 @@ def stock_response(mf, settings: ExciteSettings):
     """PySCF's own TDA/TDDFT on a converged ground state, with the ε_optical fix applied."""
     td = mf.TDA() if settings.tda else mf.TDDFT()
     td.nstates = settings.nstates
-    td.conv_tol = max(settings.response_tol ** 2, 1e-8)
+    td.conv_tol = 1e-7  # energy change (Hartree); PySCF checks residuals at sqrt(conv_tol)
     eps_used = None
     if hasattr(td, "with_solvent"):
         td.with_solvent = _response_solvent(mf, settings)
@@ -218,10 +218,10 @@ def stock_response(mf, settings: ExciteSettings):
     tdip = np.asarray(td.transition_dipole())
     pairs = []
     for x, _y in td.xy:
-        x = np.asarray(x)
-        if x.ndim == 3 or isinstance(x, tuple):  # UKS: (xa, xb)
+        if isinstance(x, (tuple, list)):  # UKS: (x_alpha, x_beta)
             pairs.append(_dominant_pairs_uks(mf, x))
         else:
+            x = np.asarray(x)
             pairs.append(_dominant_pairs(mf, x / np.linalg.norm(x)))
     return energies, osc, tdip, pairs, eps_used
 
@@ -366,7 +366,7 @@ class FastTDA:
 
         tol = self.settings.response_tol
         conv, e, x = lib.davidson1(lambda xs: list(self.matvec(xs)), list(x0), precond,
-                                   tol=tol ** 2, tol_residual=tol, nroots=nroots, max_cycle=100,
+                                   tol=max(tol ** 2, 1e-14), tol_residual=tol, nroots=nroots, max_cycle=100,
                                    max_space=max(40, 12 * nroots), verbose=0)
         if not all(conv):
             raise EngineError("fast TDA Davidson did not converge; try solver='stock'")
