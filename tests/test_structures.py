@@ -133,7 +133,9 @@ def test_perturbed_heavy_atoms_still_place_h_close(library):
     ref = {str(n): c for n, c in zip(arr.atom_name, arr.coord)}
     dev = [np.linalg.norm(xx - ref[n]) for n, xx, o in zip(m.names, m.coords, m.origin)
            if o == "ccd_h"]
-    assert max(dev) < 0.2
+    # 0.05 Å (rms per atom) noise on the heavy atoms moves a methyl H by a few tenths through the
+    # torsion lever arm; hold the worst to 0.3 Å and the typical one to 0.1 Å
+    assert max(dev) < 0.3 and float(np.median(dev)) < 0.1
 
 
 # --- bad inputs ---------------------------------------------------------------------------
@@ -178,3 +180,22 @@ def test_empty_and_non_structure_files(tmp_path):
         read_structure(junk)
     with pytest.raises(StructureError, match="does not exist"):
         read_structure(tmp_path / "nope.pdb")
+
+
+def test_models_do_not_depend_on_string_hashing(root):
+    # Identical inputs must give bit-identical QM models in every process (the QM cache keys on
+    # them); Python randomises string hashing per process, so run under two seeds.
+    import os
+    import subprocess
+    import sys
+    code = ("import sys; sys.path.insert(0, 'scripts');"
+            "from siteshift.structure import read_structure;"
+            "from siteshift.library import load_library;"
+            "from siteshift.study import find_pigment;"
+            "from siteshift.inventory import model_for;"
+            "lib = load_library(); a = read_structure('config/demo/pcd2_wt.pdb');"
+            "print(model_for(find_pigment(a, lib, 'B_HC4101'), lib).coords.round(6).tolist())")
+    outs = {subprocess.run([sys.executable, "-c", code], cwd=root, capture_output=True, text=True,
+                           env={**os.environ, "PYTHONHASHSEED": s}, check=True).stdout
+            for s in ("1", "2", "3")}
+    assert len(outs) == 1

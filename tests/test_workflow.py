@@ -51,7 +51,8 @@ def test_bad_config_stops_before_jobs(root, tmp_path):
     (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     p = _snakemake(root, tmp_path, "-n")
     assert p.returncode != 0
-    assert "sometimes" in p.stderr and "mode" in p.stderr
+    out = p.stdout + p.stderr
+    assert "sometimes" in out and "mode" in out
     assert not (tmp_path / "results").exists()
 
 

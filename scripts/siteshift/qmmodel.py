@@ -44,6 +44,10 @@ def ccd_graph(code: str):
     for i, j, _t in arr.bonds.as_array():
         adj[names[i]].add(names[j])
         adj[names[j]].add(names[i])
+    # neighbour lists in CCD atom order: iteration order must not depend on string hashing, or
+    # hydrogen placement (which picks reference atoms in this order) differs between processes
+    order = {n: k for k, n in enumerate(names)}
+    adj = {n: sorted(v, key=order.get) for n, v in adj.items()}
     return names, elements, np.asarray(arr.coord, float), adj
 
 
@@ -157,13 +161,14 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     for x_name in [n for n in names if n in keep]:
         hs = [h for h in adj[x_name] if elem_of[h] == "H"]
         heavy_nb = [b for b in adj[x_name] if b in heavy]
-        # local frame: the atom, its bonded heavy atoms present in the structure (dropped tail
-        # atoms too, so hydrogens follow the structure's torsions), then second neighbours
+        # local frame: the atom and its bonded heavy atoms present in the structure (dropped
+        # tail atoms too, so hydrogens follow the structure's own geometry); only when fewer
+        # than three points result (a methyl, a hydroxyl) one second neighbour fixes the torsion
         ref = [x_name] + [b for b in heavy_nb if b in have]
         for b in list(ref[1:]):
-            if len(ref) >= 4:
+            if len(ref) >= 3:
                 break
-            ref += [c for c in adj[b] if c in have and c not in ref]
+            ref += [c for c in adj[b] if c in have and c not in ref][:3 - len(ref)]
         if len(ref) < 3:
             raise ModelError(f"pigment {pigment_id}: cannot place hydrogens on {x_name}: too "
                              "few bonded heavy atoms present")
