@@ -23,6 +23,8 @@ rule tabulate_shifts:
     params:
         reference=REFERENCE,
         branches=config.get("branches", {}),
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/tabulate_shifts.py"
 
@@ -50,5 +52,7 @@ rule plot_study:
     params:
         fwhm=config.get("plots", {}).get("spectrum_fwhm_ev", 0.15),
         reference=REFERENCE,
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/plot_study.py"

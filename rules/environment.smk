@@ -13,6 +13,8 @@ rule measure_environment:
         pigments=config.get("pigments", {}),
         environment=config.get("environment", {}),
         dielectric=config.get("dielectric", {}),
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/measure_environment.py"
 
@@ -29,5 +31,7 @@ rule tabulate_environment:
         ),
     log:
         f"{LOGS}/tabulate_environment/all.log",
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/tabulate_environment.py"

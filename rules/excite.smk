@@ -13,6 +13,8 @@ rule tune_omega:
         runtime=120,
     params:
         qm=QM,
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/tune_omega.py"
 
@@ -35,5 +37,7 @@ rule excite_pigment:
     params:
         qm=QM,
         cache=f"{RESULTS}/qm_cache",
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/excite_pigment.py"

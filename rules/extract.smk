@@ -15,5 +15,7 @@ rule extract_pigment:
         pigments=config.get("pigments", {}),
         overrides=config.get("pigment_overrides", {}),
         cutoff=config.get("extract", {}).get("cluster_cutoff_A", 6.0),
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/extract_pigment.py"

@@ -12,5 +12,7 @@ checkpoint take_inventory:
         altloc=config.get("altloc", "occupancy"),
         pigments=config.get("pigments", {}),
         overrides=config.get("pigment_overrides", {}),
+    conda:
+        "../config/envs/siteshift.yaml"
     script:
         "../scripts/take_inventory.py"
