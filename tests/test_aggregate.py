@@ -74,3 +74,15 @@ def test_spectrum_integrates_to_total_strength():
     grid = np.linspace(0, 10, 20001)
     y = spectrum([3.0, 5.0], [0.4, 0.6], grid, fwhm_ev=0.2)
     assert np.trapezoid(y, grid) == pytest.approx(1.0, rel=1e-6)
+
+
+def test_plots_are_written(tmp_path, sites):
+    from siteshift.plots import plot_site_energies, plot_spectra
+    tsv = tmp_path / "sites.tsv"
+    sites.to_csv(tsv, sep="\t", index=False)
+    plot_site_energies(tsv, tmp_path / "s.png", tmp_path / "s.svg")
+    files = sorted(tmp_path.glob("wt_*.json")) + sorted(tmp_path.glob("mut_*.json"))
+    plot_spectra(files, tmp_path / "sp.png", tmp_path / "sp.svg", fwhm_ev=0.1)
+    for f in ("s.png", "s.svg", "sp.png", "sp.svg"):
+        assert (tmp_path / f).stat().st_size > 1000
+    assert (tmp_path / "sp.png").read_bytes()[:4] == b"\x89PNG"

@@ -224,3 +224,13 @@ def test_open_shell_runs_stock_path():
     r = excite(*CH2O, charge=1, spin=1, settings=s)
     assert r["response"]["solver"] == "stock" and r["converged"]
     assert all(st["energy_ev"] > 0 for st in r["states"])
+
+
+def test_scf_fallback_ladder_records_the_step():
+    # DIIS given too few cycles fails; the ladder moves on and records which step converged.
+    s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
+    mol = build_molecule(*WATER, basis="sto-3g")
+    mf, step, _ = run_scf(make_scf(mol, s), max_cycle=4)
+    assert mf.converged and step != "diis"
+    with pytest.raises(EngineError, match="fallback ladder"):
+        run_scf(make_scf(mol, s), max_cycle=1)

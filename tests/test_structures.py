@@ -199,3 +199,21 @@ def test_models_do_not_depend_on_string_hashing(root):
                            env={**os.environ, "PYTHONHASHSEED": s}, check=True).stdout
             for s in ("1", "2", "3")}
     assert len(outs) == 1
+
+
+def test_19hc_bis_his_ligands_in_every_cluster(hc19_path, tmp_path, library):
+    # 19HC hemes are bis-His ligated: each cluster must hold two His whose NE2 (or ND1) lies
+    # within 2.6 Å of the iron (coordination bond ≈ 2.0 Å; RCSB entry, common practice).
+    import MDAnalysis as mda
+    from siteshift.inventory import pigment_residues
+    from siteshift.study import extract_stage
+    atoms = read_structure(hc19_path)
+    pigs, _ = pigment_residues(atoms, library)
+    for res in pigs:
+        d = tmp_path / res.id
+        extract_stage(hc19_path, res.id, d / "m.xyz", d / "m.json", d / "c.pdb", library=library)
+        u = mda.Universe(str(d / "c.pdb"))
+        fe = u.select_atoms("name FE and prop tempfactor > 0.5")  # the flagged pigment
+        lig = u.select_atoms("resname HIS and name NE2 ND1 and around 2.6 group fe", fe=fe)
+        assert len(lig.residues) == 2, res.id
+        assert (u.atoms.tempfactors == 1.0).sum() == len(res.atoms)
