@@ -15,6 +15,7 @@ rule extract_pigment:
         pigments=config.get("pigments", {}),
         overrides=config.get("pigment_overrides", {}),
         cutoff=config.get("extract", {}).get("cluster_cutoff_A", 6.0),
+        axial_ligands=config.get("extract", {}).get("axial_ligands", False),
     conda:
         "../config/envs/siteshift.yaml"
     script:

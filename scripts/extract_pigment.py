@@ -6,4 +6,5 @@ sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 extract_stage(sm.input.structure, sm.wildcards.pigment, sm.output.xyz, sm.output.model,
               sm.output.cluster, library=load_library(extra=sm.params.pigments),
-              altloc=sm.params.altloc, cutoff_A=sm.params.cutoff, overrides=sm.params.overrides)
+              altloc=sm.params.altloc, cutoff_A=sm.params.cutoff, overrides=sm.params.overrides,
+              axial_ligands=sm.params.axial_ligands)

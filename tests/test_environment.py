@@ -88,7 +88,7 @@ def test_polar_site_higher_than_apolar():
     model = DielectricModel()
     apolar = site_metrics(*_site(_shell("apolar")))
     polar = site_metrics(*_site(_shell("polar")))
-    assert apolar["hydropathy_kd"] > 3 and polar["n_charged_groups"] >= 4
+    assert apolar["hydropathy"] > 3 and polar["n_charged_groups"] >= 4
     assert polar["n_waters"] >= 2
     ea = model.assign("A", apolar)["eps_static"]
     ep = model.assign("B", polar)["eps_static"]
@@ -138,3 +138,17 @@ def test_19hc_burial_and_dielectric_ordering(hc19_path, library):
     assert most_buried[2]["eps_static"] < most_exposed[2]["eps_static"]
     eps = [r[2]["eps_static"] for r in rows]
     assert all(2.0 <= e <= 20.0 for e in eps)
+
+
+def test_eisenberg_scale_orders_like_kyte_doolittle():
+    # Both published scales rank the apolar residues I, V, L, F above the charged R, K, D, E
+    # (Eisenberg et al., J. Mol. Biol. 179, 125 (1984); Kyte & Doolittle 1982).
+    from siteshift.environment import EISENBERG
+    for apolar in ("ILE", "VAL", "LEU", "PHE"):
+        for charged in ("ARG", "LYS", "ASP", "GLU"):
+            assert EISENBERG[apolar] > EISENBERG[charged]
+            assert KYTE_DOOLITTLE[apolar] > KYTE_DOOLITTLE[charged]
+    assert len(EISENBERG) == 20
+    pig, pel, env = _site(_shell("apolar"))
+    m = site_metrics(pig, pel, env, EnvironmentSettings(hydropathy_scale="eisenberg"))
+    assert m["hydropathy_scale"] == "eisenberg" and 1.0 < m["hydropathy"] < 1.4

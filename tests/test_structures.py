@@ -217,3 +217,17 @@ def test_19hc_bis_his_ligands_in_every_cluster(hc19_path, tmp_path, library):
         lig = u.select_atoms("resname HIS and name NE2 ND1 and around 2.6 group fe", fe=fe)
         assert len(lig.residues) == 2, res.id
         assert (u.atoms.tempfactors == 1.0).sum() == len(res.atoms)
+
+
+def test_axial_his_ligands_join_the_qm_model(hc19_path, library, tmp_path):
+    # 19HC bis-His hemes: with axial ligands on, each QM model gains two 4-methylimidazoles
+    # (His side chains cut at CA–CB; the coordinating Nε loses its proton): C30H28FeN4 +
+    # 2 × C4H6N2 = C38H40FeN8, still neutral (formula from the CCD HIS entry).
+    from siteshift.study import extract_stage
+    rec = extract_stage(hc19_path, "B_HEM305", tmp_path / "m.xyz", tmp_path / "m.json",
+                        tmp_path / "c.pdb", library=library, axial_ligands=True)
+    assert rec["formula"] == "C38H40FeN8" and rec["charge"] == 0
+    assert sum("axial ligand" in p for p in rec["problems"]) == 2
+    x = np.array(rec["coords_A"])
+    d = np.linalg.norm(x[:, None] - x[None], axis=-1) + np.eye(len(x)) * 10
+    assert d.min() > 0.9

@@ -73,7 +73,7 @@ def cmd_extract(args):
     out = Path(args.outdir)
     rec = extract_stage(args.structure, args.pigment, out / "qm_model.xyz", out / "qm_model.json",
                         out / "cluster.pdb", library=_library(args), altloc=args.altloc,
-                        cutoff_A=args.cutoff)
+                        cutoff_A=args.cutoff, axial_ligands=args.axial_ligands)
     print(f"{rec['pigment_id']}: {rec['formula']} ({rec['n_atoms']} atoms) -> {out}")
     return 0
 
@@ -102,7 +102,7 @@ def cmd_environment(args):
         d = model.assign(r.id, metrics)
         out.append({"pigment_id": r.id, "metrics": metrics, "dielectric": d})
         print(f"{r.id:<14s} eps_static={d['eps_static']:6.2f} eps_optical={d['eps_optical']:5.2f}"
-              f"  burial={metrics['burial']:.2f} KD={metrics['hydropathy_kd']:+.2f} "
+              f"  burial={metrics['burial']:.2f} hydropathy={metrics['hydropathy']:+.2f} "
               f"polar={metrics['n_polar_atoms']} charged={metrics['n_charged_groups']} "
               f"waters={metrics['n_waters']} packing={metrics['packing_density']:.2f}")
     if args.json:
@@ -209,6 +209,8 @@ def main(argv=None):
     p.add_argument("--outdir", required=True)
     p.add_argument("--altloc", default="occupancy")
     p.add_argument("--cutoff", type=float, default=6.0, help="cluster cutoff (Å)")
+    p.add_argument("--axial-ligands", action="store_true",
+                   help="add metal-coordinating side chains to the QM model")
     p.set_defaults(func=cmd_extract)
     p = sub.add_parser("environment", help="environment metrics and dielectrics")
     p.add_argument("structure")

@@ -13,7 +13,8 @@ charged groups and water; Schutz & Warshel, Proteins 44, 400 (2001); Li et al., 
 - exposure × 10.0 (only when the exposed surface faces water): a fully exposed pigment ≈ 12;
 - 0.1 per polar N/O atom within 4 Å, 0.5 per charged group within 7 Å, 0.15 per water within 6 Å:
   polar and mobile charged groups raise the local static screening;
-- −0.1 per Kyte–Doolittle unit of the contact-weighted hydropathy (apolar lowers);
+- −0.1 per Kyte–Doolittle unit of the contact-weighted hydropathy (apolar lowers; rescale the
+  coefficient if you choose the Eisenberg scale, whose range is about a quarter as wide);
 - −1.0 × packing density (0–1): tightly packed surroundings leave little room for reorientation.
 ε_optical = n² of the medium (default 2.0, protein refractive index ≈ 1.41; common practice),
 never above ε_static.
@@ -28,7 +29,7 @@ DEFAULT_COEFFICIENTS = {
     "n_polar_atoms": 0.1,
     "n_charged_groups": 0.5,
     "n_waters": 0.15,
-    "hydropathy_kd": -0.1,
+    "hydropathy": -0.1,
     "packing_density": -1.0,
 }
 
@@ -80,7 +81,7 @@ class DielectricModel:
         else:
             raw = self.eps_min
             for k, c in {**DEFAULT_COEFFICIENTS, **self.coefficients}.items():
-                m = float(metrics.get(k, 0.0))
+                m = float(metrics.get(k, 0.0) or 0.0)
                 if k == "exposure" and self.exposed_medium != "water":
                     m = 0.0
                 terms[k] = c * m

@@ -19,7 +19,15 @@ KYTE_DOOLITTLE = {
     "GLY": -0.4, "HIS": -3.2, "ILE": 4.5, "LEU": 3.8, "LYS": -3.9, "MET": 1.9, "PHE": 2.8,
     "PRO": -1.6, "SER": -0.8, "THR": -0.7, "TRP": -0.9, "TYR": -1.3, "VAL": 4.2,
 }
-HYDROPATHY_SCALES = {"kyte_doolittle": KYTE_DOOLITTLE}
+#: Eisenberg normalised consensus hydrophobicity (Eisenberg, Schwarz, Komaromy, Wall,
+#: J. Mol. Biol. 179, 125 (1984)); values from memory, checked for order against Kyte–Doolittle
+EISENBERG = {
+    "ALA": 0.62, "ARG": -2.53, "ASN": -0.78, "ASP": -0.90, "CYS": 0.29, "GLN": -0.85,
+    "GLU": -0.74, "GLY": 0.48, "HIS": -0.40, "ILE": 1.38, "LEU": 1.06, "LYS": -1.50,
+    "MET": 0.64, "PHE": 1.19, "PRO": 0.12, "SER": -0.18, "THR": -0.05, "TRP": 0.81,
+    "TYR": 0.26, "VAL": 1.08,
+}
+HYDROPATHY_SCALES = {"kyte_doolittle": KYTE_DOOLITTLE, "eisenberg": EISENBERG}
 _ALIASES = {"HID": "HIS", "HIE": "HIS", "HIP": "HIS", "HSD": "HIS", "HSE": "HIS", "HSP": "HIS",
             "MSE": "MET", "CYX": "CYS", "ASH": "ASP", "GLH": "GLU", "LYN": "LYS"}
 
@@ -150,7 +158,8 @@ def site_metrics(pig_coords, pig_elements, env, settings: EnvironmentSettings | 
             kd_sum += w * scale[rn]
             n_res += 1
     out["n_contact_residues"] = n_res
-    out["hydropathy_kd"] = kd_sum / w_tot if w_tot else 0.0
+    out["hydropathy"] = kd_sum / w_tot if w_tot else 0.0
+    out["hydropathy_scale"] = s.hydropathy_scale
     # polarity
     is_water = np.isin(resn, list(WATERS))
     # atoms coordinating a pigment metal (closer than 2.6 Å) are ligands, not polar neighbours

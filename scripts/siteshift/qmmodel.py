@@ -110,7 +110,7 @@ def electrons(elements, charge) -> int:
 
 
 def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, ptype,
-                   charge=None, multiplicity=None) -> QMModel:
+                   charge=None, multiplicity=None, check_spin=True) -> QMModel:
     """The QM model of one pigment residue.
 
     atom_names / atom_elements / atom_coords: the pigment's atoms as read (hydrogens in the input
@@ -194,7 +194,7 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     charge = ptype.charge if charge is None else int(charge)
     mult = ptype.multiplicity if multiplicity is None else int(multiplicity)
     nelec = electrons(out_e, charge)
-    if (nelec + mult - 1) % 2:
+    if check_spin and (nelec + mult - 1) % 2:
         raise ModelError(f"pigment {pigment_id}: charge {charge} and multiplicity {mult} are "
                          f"impossible for {formula(out_e)} ({nelec} electrons); fix the pigment "
                          "library entry or the study's pigment override")
@@ -213,4 +213,71 @@ def close_contacts(model: QMModel, threshold=0.9):
         for j in range(len(x)):
             if j != i and d[i, j] < threshold:
                 out.append((i, j, float(d[i, j])))
+    return out
+
+
+METALS = {"Mg", "Fe", "Zn", "Ni", "Co", "Cu", "Mn", "Cd", "Ca"}
+#: amino-acid ligands: their side chain enters the QM model, cut at CA–CB (CB capped → methyl)
+LIGAND_SIDE_CHAINS = {"HIS": ["CB", "CG", "ND1", "CD2", "CE1", "NE2"],
+                      "CYS": ["CB", "SG"], "MET": ["CB", "CG", "SD", "CE"]}
+
+
+def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel:
+    """Add the side chains that coordinate the pigment's metal to its QM model.
+
+    env_atoms: MDAnalysis AtomGroup of everything but the pigment. A ligand is a residue listed in
+    the library entry's ``axial_ligand_atoms`` with one of the listed atoms within `cutoff_A` of
+    the metal. Its side chain is cut at CA–CB and capped (CB becomes a methyl); the proton on the
+    coordinating atom is removed (His → neutral Nε/Nδ-coordinated imidazole, Cys → thiolate), so
+    the charge changes by the CCD formal charges kept minus the protons removed. Water ligands and
+    residues without a side-chain rule are reported, not added.
+    """
+    from types import SimpleNamespace
+    metal = [i for i, e in enumerate(model.elements) if e in METALS]
+    if not metal or not ptype.axial_ligand_atoms:
+        return model
+    mx = model.coords[metal[0]]
+    d = np.linalg.norm(env_atoms.positions - mx, axis=1)
+    close = env_atoms[d < cutoff_A]
+    elements, coords = list(model.elements), [*model.coords]
+    names, origin = list(model.names), list(model.origin)
+    charge, problems = model.charge, list(model.problems)
+    seen = set()
+    for a in close:
+        rn = str(a.resname).upper()
+        key = (str(a.segid), str(getattr(a, "chainID", "")), int(a.resid), rn)
+        if key in seen or str(a.name) not in ptype.axial_ligand_atoms.get(rn, ()):
+            continue
+        seen.add(key)
+        tag = f"{key[1] or key[0]}:{rn}{a.resid}"
+        if rn not in LIGAND_SIDE_CHAINS:
+            problems.append(f"ligand {tag} {a.name} coordinates the metal but has no side-chain "
+                            "rule; not added to the QM model")
+            continue
+        res = a.residue.atoms & env_atoms
+        lt = SimpleNamespace(core=tuple(LIGAND_SIDE_CHAINS[rn]), cut_bonds=(("CB", "CA"),),
+                             charge=0, multiplicity=1)
+        sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions, lt,
+                             charge=0, multiplicity=1, check_spin=False)
+        lig_atom = str(a.name)
+        _n, _e, _x, adj = ccd_graph(rn)
+        drop_h = {h for h in adj[lig_atom] if h.startswith("H")}
+        arr = ccd_residue(rn)
+        formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
+        q = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
+        q -= sum(1 for n in sub.names if n in drop_h)
+        for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
+            if n in drop_h:
+                continue
+            elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
+            origin.append(f"ligand_{o}")
+        charge += q
+        dist = float(np.linalg.norm(a.position - mx))
+        problems.append(f"axial ligand {tag} ({lig_atom}, {dist:.2f} A) in QM, charge {q:+d}")
+    out = QMModel(model.pigment_id, model.code, elements, np.array(coords), names, origin,
+                  charge, model.multiplicity, model.dropped, model.missing, problems)
+    nelec = electrons(out.elements, out.charge)
+    if (nelec + out.multiplicity - 1) % 2:
+        raise ModelError(f"pigment {model.pigment_id} with axial ligands: charge {out.charge} and "
+                         f"multiplicity {out.multiplicity} are impossible ({nelec} electrons)")
     return out

@@ -96,12 +96,19 @@ def _write_atoms(ag, path):
 
 
 def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, library=None,
-                  altloc="occupancy", cutoff_A=6.0, overrides=None):
-    """QM model (XYZ + JSON record) and environment cluster (PDB) of one pigment."""
+                  altloc="occupancy", cutoff_A=6.0, overrides=None, axial_ligands=False):
+    """QM model (XYZ + JSON record) and environment cluster (PDB) of one pigment.
+
+    axial_ligands: add the side chains coordinating the pigment's metal to the QM model.
+    """
+    from .qmmodel import add_axial_ligands
     library = library or load_library()
     atoms = read_structure(structure, altloc)
     res = find_pigment(atoms, library, pigment_id)
     model = model_for(res, library, overrides)
+    if axial_ligands:
+        model = add_axial_ligands(model, library[res.code],
+                                  atoms[~np.isin(atoms.indices, res.atoms.indices)])
     rec = model_record(model, library[res.code], structure)
     io.atomic_write_text(out_xyz, model.to_xyz())
     io.write_json(out_model, rec)
@@ -144,7 +151,7 @@ def environment_stage(structure, model_json, out_json, settings: EnvironmentSett
     log.info("%s: eps_static=%.3f eps_optical=%.3f (%s); burial %.2f, hydropathy %.2f, "
              "%d polar atoms, %d charged groups, %d waters", rec["pigment_id"],
              diel["eps_static"], diel["eps_optical"], diel["source"], metrics["burial"],
-             metrics["hydropathy_kd"], metrics["n_polar_atoms"], metrics["n_charged_groups"],
+             metrics["hydropathy"], metrics["n_polar_atoms"], metrics["n_charged_groups"],
              metrics["n_waters"])
     return out
 
