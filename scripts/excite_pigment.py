@@ -1,11 +1,10 @@
 """Snakemake script: SRSH-PCM excited states of one pigment (cached by input hash)."""
-from pyscf import lib
-
+from siteshift.engine import configure_threads
 from siteshift.study import excite_stage, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
-lib.num_threads(sm.threads)
+configure_threads(sm.threads)
 excite_stage(sm.input.model, sm.input.environment, sm.output.json, sm.params.qm,
              tuning_json=sm.input.tuning or None, cache_dir=sm.params.cache,
              variant=sm.wildcards.variant)

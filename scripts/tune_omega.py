@@ -1,12 +1,11 @@
 """Snakemake script: gas-phase optimal tuning of ω for one pigment type."""
-from pyscf import lib
-
 from siteshift.settings import qm_settings, tune_xatol
+from siteshift.engine import configure_threads
 from siteshift.study import setup_logging, tune_stage
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
-lib.num_threads(sm.threads)
+configure_threads(sm.threads)
 qm = sm.params.qm
 tune = qm.get("tune", {}) or {}
 tune_stage(sm.input.model, sm.output.json, qm_settings(qm), xatol=tune_xatol(qm),

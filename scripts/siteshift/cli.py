@@ -229,7 +229,13 @@ def main(argv=None):
     p.add_argument("--xatol", type=float, default=0.01)
     p.add_argument("--anion", action="store_true", help="J² with the anion term")
     p.set_defaults(func=cmd_tune)
+    ap.add_argument("--threads", type=int, default=None,
+                    help="OpenMP threads for PySCF (default: all cores; BLAS stays single)")
     args = ap.parse_args(argv)
+    if args.cmd in ("excite", "tune"):
+        import os
+        from .engine import configure_threads
+        configure_threads(args.threads or os.cpu_count() or 1)
     from .dielectric import DielectricError
     from .engine import EngineError
     from .library import LibraryError

@@ -36,6 +36,18 @@ NM_EV = nist.PLANCK * nist.LIGHT_SPEED_SI / nist.E_CHARGE * 1e9
 PCM_METHODS = ("IEF-PCM", "C-PCM")
 
 
+def configure_threads(n: int) -> None:
+    """Use n OpenMP threads in PySCF's own kernels and keep BLAS single-threaded.
+
+    PySCF's OpenMP loops call BLAS inside; letting OpenBLAS spawn its own threads as well
+    oversubscribes the cores. Measured on 2 cores (20-atom UKS SCF, 6-31G, grid 1): OpenMP 2 +
+    BLAS 1: 23.0 s; both 2: 34.5 s; both 1: 40.7 s.
+    """
+    from threadpoolctl import threadpool_limits
+    threadpool_limits(1, user_api="blas")
+    lib.num_threads(max(1, int(n)))
+
+
 class EngineError(RuntimeError):
     """A calculation could not be set up or did not converge."""
 
