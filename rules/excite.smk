@@ -7,7 +7,7 @@ rule tune_omega:
         f"{LOGS}/tune_omega/{{code}}.log",
     benchmark:
         "benchmarks/tune_omega/{code}.tsv"
-    threads: max(QM.get("threads", 1), workflow.cores)  # every excitation waits on it
+    threads: max(QM.get("threads", 1), 2)  # every excitation waits on it; capped at --cores
     resources:
         mem_mb=qm_mem_mb,
         runtime=120,
