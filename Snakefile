@@ -16,6 +16,7 @@ include: "rules/extract.smk"
 include: "rules/environment.smk"
 include: "rules/excite.smk"
 include: "rules/aggregate.smk"
+include: "rules/sweep.smk"
 
 
 rule all:
@@ -26,6 +27,7 @@ rule all:
         f"{RESULTS}/tables/environment.tsv",
         f"{RESULTS}/plots/site_energies.png",
         f"{RESULTS}/plots/spectrum.png",
+        optional_targets(),
 
 
 rule inventories:

@@ -13,6 +13,7 @@ LOGS = "logs"
 VARIANTS = sorted(config["variants"])
 REFERENCE = config["reference"]
 QM = config.get("qm", {})
+SWEEP = config.get("sweep", {}) or {}
 
 
 wildcard_constraints:
@@ -83,3 +84,24 @@ def all_environments(wildcards):
 
 def qm_mem_mb(wildcards, attempt):
     return int(QM.get("max_memory_mb", 4000) * 1.5 * attempt)
+
+
+def sweep_pigments(variant):
+    chosen = SWEEP.get("pigments") or []
+    return [p for p in pigments_of(variant) if not chosen or p in chosen]
+
+
+def all_sweeps(wildcards):
+    return [
+        f"{RESULTS}/{v}/pigments/{p}/eps_sweep.json"
+        for v in VARIANTS
+        for p in sweep_pigments(v)
+    ]
+
+
+def optional_targets():
+    """Outputs of optional stages that `all` asks for when they are switched on."""
+    out = []
+    if SWEEP.get("enabled"):
+        out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
+    return out

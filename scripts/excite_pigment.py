@@ -1,4 +1,7 @@
 """Snakemake script: SRSH-PCM excited states of one pigment (cached by input hash)."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.engine import configure_threads
 from siteshift.study import excite_stage, setup_logging
 

@@ -1,4 +1,7 @@
 """Snakemake script: QM model and environment cluster of one pigment."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.library import load_library
 from siteshift.study import extract_stage, setup_logging
 

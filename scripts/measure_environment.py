@@ -1,4 +1,7 @@
 """Snakemake script: environment metrics and effective dielectric of one pigment site."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.library import load_library
 from siteshift.settings import dielectric_model, environment_settings
 from siteshift.study import environment_stage, setup_logging

@@ -1,4 +1,7 @@
 """Snakemake script: site-energy and simulated-spectrum plots (PNG and SVG)."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.plots import plot_site_energies, plot_spectra
 from siteshift.study import setup_logging
 

@@ -1,4 +1,7 @@
 """Snakemake script: site-energy, branch-shift and variant-shift tables."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.study import setup_logging, shift_tables
 
 sm = snakemake  # noqa: F821

@@ -1,4 +1,7 @@
 """Snakemake script: inventory of one structure (see siteshift.study.inventory_stage)."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.library import load_library
 from siteshift.study import inventory_stage, setup_logging
 

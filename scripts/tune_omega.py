@@ -1,4 +1,7 @@
 """Snakemake script: gas-phase optimal tuning of ω for one pigment type."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.settings import qm_settings, tune_xatol
 from siteshift.engine import configure_threads
 from siteshift.study import setup_logging, tune_stage

@@ -86,3 +86,25 @@ def test_plots_are_written(tmp_path, sites):
     for f in ("s.png", "s.svg", "sp.png", "sp.svg"):
         assert (tmp_path / f).stat().st_size > 1000
     assert (tmp_path / "sp.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_eps_for_target_interpolates_with_bracket():
+    from siteshift.aggregate import eps_for_target
+    rows = []
+    for eps, ea, eb in ((2.0, 4.00, 4.10), (4.0, 4.00, 4.05), (8.0, 4.00, 3.98)):
+        rows += [{"variant": "wt", "band": "Qy", "pigment_id": "A", "eps_static": eps,
+                  "energy_ev": ea},
+                 {"variant": "wt", "band": "Qy", "pigment_id": "B", "eps_static": eps,
+                  "energy_ev": eb}]
+    df = pd.DataFrame(rows)
+    t = {"name": "t", "kind": "branch", "pair": "p", "variant": "wt", "band": "Qy",
+         "value_ev": 0.0}
+    r = eps_for_target(df, t, {"p": ("A", "B")})
+    # ΔE(4) = −0.05, ΔE(8) = +0.02: zero at 4 + 4·0.05/0.07
+    assert r["status"] == "ok" and (r["bracket_low"], r["bracket_high"]) == (4.0, 8.0)
+    assert r["eps_static"] == pytest.approx(4 + 4 * 0.05 / 0.07)
+    r = eps_for_target(df, {**t, "value_ev": 1.0}, {"p": ("A", "B")})
+    assert r["eps_static"] is None and "not bracketed" in r["status"]
+    r = eps_for_target(df, {**t, "kind": "site", "pigment": "B", "value_ev": 4.0},
+                       {"p": ("A", "B")})
+    assert r["bracket_low"] == 4.0 and r["eps_static"] == pytest.approx(4 + 4 * 0.05 / 0.07)

@@ -29,7 +29,12 @@ def _snakemake(root, workdir, *args):
 def study(root, tmp_path_factory):
     work = tmp_path_factory.mktemp("study")
     (work / "config").mkdir()
-    (work / "config/config.yaml").write_text(yaml.safe_dump(_tiny_config(root)))
+    cfg = _tiny_config(root)
+    cfg["sweep"] = {"enabled": True, "eps_static": [2.0, 8.0], "n2": 2.0,
+                    "pigments": ["A_HC4101", "B_HC4101"],
+                    "targets": [{"name": "split", "kind": "branch", "pair": "HC4-pocket",
+                                 "variant": "wt", "band": "S1", "value_ev": 0.0}]}
+    (work / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     p = _snakemake(root, work)
     assert p.returncode == 0, p.stderr[-4000:]
     return work
@@ -94,3 +99,16 @@ def test_outputs_for_inspection(study):
     w = json.loads((study / "results/wt/pigments/B_HC4101/excited_states.json").read_text())
     assert m["qm_hash"] == w["qm_hash"]
     assert {m["cache"], w["cache"]} == {"computed", "reused"}
+
+
+def test_eps_sweep_outputs(study):
+    sw = pd.read_csv(study / "results/tables/eps_sweep.tsv", sep="\t")
+    assert set(sw.eps_static) == {2.0, 8.0}
+    assert set(sw.variant) == {"wt", "A_I6E"}
+    s1 = sw[(sw.band == "S1") & (sw.variant == "wt") & (sw.pigment_id == "A_HC4101")]
+    assert s1.energy_ev.notna().all() and len(s1) == 2
+    second = sw[sw.eps_static == 8.0].iloc[0]
+    assert second.scf_cycles_cold > 0 and second.scf_cycles <= second.scf_cycles_cold
+    tg = pd.read_csv(study / "results/tables/eps_targets.tsv", sep="\t")
+    assert tg.iloc[0].status in ("ok", "not bracketed by the scanned ε range")
+    assert (study / "results/plots/eps_sweep.png").exists()

@@ -123,3 +123,53 @@ def spectrum(energies_ev, strengths, grid_ev, fwhm_ev=0.1):
 
 
 __all__ = ["site_energies", "branch_shifts", "variant_shifts", "auto_pairs", "spectrum", "NM_EV"]
+
+
+def sweep_rows(sweep: dict) -> list:
+    """Long rows of one ε sweep: one per ε point and band (named bands and S1)."""
+    rows = []
+    for pt in sweep["points"]:
+        states = sorted(pt["states"], key=lambda s: s["energy_ev"])
+        for band, s in [(s["band"], s) for s in states if s.get("band")] + [("S1", states[0])]:
+            rows.append({"variant": sweep.get("variant"), "pigment_id": sweep["pigment_id"],
+                         "ccd_code": sweep["ccd_code"], "eps_static": pt["eps_static"],
+                         "eps_optical": pt["eps_optical"], "band": band,
+                         "energy_ev": s["energy_ev"], "wavelength_nm": s["wavelength_nm"],
+                         "oscillator_strength": s["oscillator_strength"],
+                         "scf_cycles": pt["scf_cycles"], "scf_cycles_cold": pt["scf_cycles_cold"],
+                         "omega_bohr_inv": sweep["omega_bohr_inv"]})
+    return rows
+
+
+def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
+    """The ε (uniform for the sites involved) at which a computed quantity equals a measured one.
+
+    target: {name, kind: "branch" (pair: name of a configured pair, ΔE = E(a) − E(b)) or "site"
+    (pigment: id, E itself), variant, band, value_ev}. Linear interpolation between the
+    bracketing grid points; reports the bracket, or why there is none.
+    """
+    out = {"target": target.get("name"), "kind": target["kind"], "variant": target["variant"],
+           "band": target["band"], "value_ev": target["value_ev"]}
+    sv = sweep[(sweep.variant == target["variant"]) & (sweep.band == target["band"])]
+    if target["kind"] == "branch":
+        a, b = pairs[target["pair"]]
+        ea = sv[sv.pigment_id == a].set_index("eps_static").energy_ev
+        eb = sv[sv.pigment_id == b].set_index("eps_static").energy_ev
+        curve = (ea - eb).dropna().sort_index()
+    else:
+        curve = sv[sv.pigment_id == target["pigment"]].set_index("eps_static") \
+            .energy_ev.sort_index()
+    eps, vals = curve.index.to_numpy(float), curve.to_numpy(float) - target["value_ev"]
+    out.update(eps_min_scanned=float(eps.min()) if len(eps) else None,
+               eps_max_scanned=float(eps.max()) if len(eps) else None)
+    for k in range(len(eps) - 1):
+        if vals[k] == 0 or vals[k] * vals[k + 1] < 0:
+            t = 0.0 if vals[k] == 0 else vals[k] / (vals[k] - vals[k + 1])
+            out.update(eps_static=float(eps[k] + t * (eps[k + 1] - eps[k])),
+                       bracket_low=float(eps[k]), bracket_high=float(eps[k + 1]),
+                       status="ok")
+            return out
+    out.update(eps_static=None, bracket_low=None, bracket_high=None,
+               status="not bracketed by the scanned ε range" if len(eps) > 1 else
+               "fewer than two sweep points")
+    return out

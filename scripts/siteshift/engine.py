@@ -447,7 +447,7 @@ def _orb_label(k, homo):
 
 
 def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
-           log=None, dm0=None, band_axes=None, bright_threshold=0.01):
+           log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False):
     """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
 
     band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
@@ -531,6 +531,8 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__,
                      "numpy": np.__version__},
     }
+    if keep_density:
+        result["_dm"] = mf.make_rdm1()
     return result
 
 

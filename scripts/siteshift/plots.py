@@ -63,3 +63,24 @@ def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
     if out_svg:
         fig.savefig(out_svg)
     plt.close(fig)
+
+
+def plot_sweep(df, out_png, out_svg=None):
+    """Energy against ε_static, one line per variant × pigment × band."""
+    fig, ax = plt.subplots(figsize=(5.5, 3.6))
+    if len(df):
+        bands = df.band.unique()
+        use = df[df.band != "S1"] if any(b != "S1" for b in bands) else df
+        for (v, p, b), g in use.groupby(["variant", "pigment_id", "band"]):
+            g = g.sort_values("eps_static")
+            ax.plot(g.eps_static, g.energy_ev, "o-", label=f"{v} {p} {b}")
+        ax.set_xscale("log")
+        ax.legend(fontsize=7, frameon=False)
+    ax.set_xlabel("ε_static (uniform)")
+    ax.set_ylabel("excitation energy (eV)")
+    ax.grid(alpha=0.3)
+    fig.tight_layout()
+    fig.savefig(out_png, dpi=150)
+    if out_svg:
+        fig.savefig(out_svg)
+    plt.close(fig)

@@ -281,3 +281,55 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
         for _i, r in vs[vs.status != "ok"].iterrows():
             log.warning("variant %s: pigment %s %s", r.variant, r.pigment_id, r.status)
     return sites, br, vs
+
+
+def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
+                variant=None):
+    """Excited states of one pigment over a grid of ε_static (uniform: SRSH screening and PCM
+    together; ε_optical = min(n², ε_static)). Each point's SCF starts from the previous point's
+    density (warm start); cycles with and without it are recorded for the first two points."""
+    from .engine import build_molecule, make_scf, run_scf
+    from .settings import qm_settings
+    rec = io.read_json(model_json)
+    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    points, dm = [], None
+    t0 = time.perf_counter()
+    for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
+        s = qm_settings(qm, eps, min(n2, eps), omega, rec.get("nstates_default"))
+        t = time.perf_counter()
+        res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
+                     s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
+                     keep_density=True)
+        cold = None
+        if k == 1:  # the same point from the default guess, to measure what the warm start saves
+            mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
+                                 rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
+            cold = run_scf(make_scf(mol, s))[2]
+        dm = res.pop("_dm", None)
+        points.append({"eps_static": eps, "eps_optical": min(n2, eps),
+                       "scf_cycles": res["scf_cycles"], "scf_cycles_cold": cold,
+                       "warm_start": k > 0, "time_s": round(time.perf_counter() - t, 2),
+                       "states": res["states"]})
+        log.info("%s eps=%.2f: %s (SCF %d cycles%s)", rec["pigment_id"], eps,
+                 ", ".join(f"{st['energy_ev']:.4f}" for st in res["states"]),
+                 res["scf_cycles"], "" if cold is None else f"; cold start {cold}")
+    out = {"pigment_id": rec["pigment_id"], "ccd_code": rec["ccd_code"], "variant": variant,
+           "omega_bohr_inv": omega, "n2": n2, "points": points,
+           "time_s": round(time.perf_counter() - t0, 2)}
+    io.write_json(out_json, out)
+    return out
+
+
+def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=()):
+    """Long table of the ε sweeps and, for each measured target, the ε that reproduces it."""
+    from .aggregate import eps_for_target, sweep_rows
+    rows = []
+    for p in sweep_files:
+        rows += sweep_rows(io.read_json(p))
+    df = pd.DataFrame(rows)
+    io.write_tsv(out_tsv, df)
+    tg = pd.DataFrame([eps_for_target(df, t, dict((n, (a, b)) for n, a, b in pairs))
+                       for t in targets])
+    io.write_tsv(out_targets, tg)
+    log.info("eps sweep: %d rows; %d target(s)", len(df), len(tg))
+    return df, tg

@@ -1,0 +1,54 @@
+rule sweep_epsilon:
+    input:
+        model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
+        tuning=tuning_input,
+    output:
+        json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/eps_sweep.json",
+    log:
+        f"{LOGS}/sweep_epsilon/{{variant}}/{{pigment}}.log",
+    benchmark:
+        "benchmarks/sweep_epsilon/{variant}/{pigment}.tsv"
+    threads: QM.get("threads", 1)
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=600,
+    params:
+        qm=QM,
+        grid=SWEEP.get("eps_static", [2.0, 4.0, 8.0, 16.0]),
+        n2=SWEEP.get("n2", 2.0),
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/sweep_epsilon.py"
+
+
+rule tabulate_sweep:
+    input:
+        inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
+        sweeps=all_sweeps,
+    output:
+        table=report(
+            f"{RESULTS}/tables/eps_sweep.tsv",
+            caption="../config/report/eps_sweep.rst",
+            category="Dielectric sensitivity",
+        ),
+        targets=report(
+            f"{RESULTS}/tables/eps_targets.tsv",
+            caption="../config/report/eps_targets.rst",
+            category="Dielectric sensitivity",
+        ),
+        plot=report(
+            f"{RESULTS}/plots/eps_sweep.png",
+            caption="../config/report/plot_sweep.rst",
+            category="Dielectric sensitivity",
+        ),
+        plot_svg=f"{RESULTS}/plots/eps_sweep.svg",
+    log:
+        f"{LOGS}/tabulate_sweep/all.log",
+    params:
+        pairs=config.get("branches", {}).get("pairs", []),
+        targets=SWEEP.get("targets", []),
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/tabulate_sweep.py"

@@ -1,0 +1,12 @@
+"""Snakemake script: ε sweep of one pigment (warm-started SCF across the grid)."""
+import sys
+
+sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
+from siteshift.engine import configure_threads
+from siteshift.study import setup_logging, sweep_stage
+
+sm = snakemake  # noqa: F821
+setup_logging(sm.log[0])
+configure_threads(sm.threads)
+sweep_stage(sm.input.model, sm.output.json, sm.params.qm, sm.params.grid, n2=sm.params.n2,
+            tuning_json=sm.input.tuning or None, variant=sm.wildcards.variant)
