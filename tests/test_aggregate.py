@@ -105,6 +105,9 @@ def test_eps_for_target_interpolates_with_bracket():
     assert r["eps_static"] == pytest.approx(4 + 4 * 0.05 / 0.07)
     r = eps_for_target(df, {**t, "value_ev": 1.0}, {"p": ("A", "B")})
     assert r["eps_static"] is None and "not bracketed" in r["status"]
+    flat = eps_for_target(df, {**t, "kind": "site", "pigment": "A", "value_ev": 4.0},
+                          {"p": ("A", "B")})
+    assert flat["eps_static"] is None and "does not depend" in flat["status"]
     r = eps_for_target(df, {**t, "kind": "site", "pigment": "B", "value_ev": 4.0},
                        {"p": ("A", "B")})
     assert r["bracket_low"] == 4.0 and r["eps_static"] == pytest.approx(4 + 4 * 0.05 / 0.07)

@@ -162,6 +162,10 @@ def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
     eps, vals = curve.index.to_numpy(float), curve.to_numpy(float) - target["value_ev"]
     out.update(eps_min_scanned=float(eps.min()) if len(eps) else None,
                eps_max_scanned=float(eps.max()) if len(eps) else None)
+    if len(vals) > 1 and np.ptp(vals) < 1e-6:
+        out.update(eps_static=None, bracket_low=None, bracket_high=None,
+                   status="computed value does not depend on ε (flat within 1e-6 eV)")
+        return out
     for k in range(len(eps) - 1):
         if vals[k] == 0 or vals[k] * vals[k + 1] < 0:
             t = 0.0 if vals[k] == 0 else vals[k] / (vals[k] - vals[k + 1])
