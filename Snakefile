@@ -20,6 +20,7 @@ include: "rules/sweep.smk"
 
 
 rule all:
+    default_target: True
     input:
         f"{RESULTS}/tables/site_energies.tsv",
         f"{RESULTS}/tables/branch_shifts.tsv",
@@ -28,6 +29,7 @@ rule all:
         f"{RESULTS}/plots/site_energies.png",
         f"{RESULTS}/plots/spectrum.png",
         optional_targets(),
+        expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
 
 
 rule inventories:

@@ -117,3 +117,63 @@ def test_eps_sweep_outputs(study):
     b = sw[(sw.pigment_id == "B_HC4101") & (sw.variant == "wt") & (sw.band == "S1")]
     assert abs(a.energy_ev.values - b.energy_ev.values).max() < 1e-6
     assert (study / "results/plots/eps_sweep.png").exists()
+
+
+def _planned(p):
+    """{rule: count} from the 'Job stats' table of a dry run."""
+    counts, inside = {}, False
+    for line in p.stdout.splitlines():
+        if line.startswith("Job stats"):
+            inside = True
+            continue
+        if inside:
+            parts = line.split()
+            if len(parts) == 2 and parts[1].isdigit() and parts[0] != "total":
+                counts[parts[0]] = int(parts[1])
+            elif parts and parts[0] == "total":
+                break
+    return counts
+
+
+@pytest.fixture
+def study_copy(study, tmp_path):
+    work = tmp_path / "copy"
+    shutil.copytree(study, work, symlinks=True)
+    return work
+
+
+def test_qm_parameter_change_reruns_only_qm_and_after(root, study_copy):
+    cfg = yaml.safe_load((study_copy / "config/config.yaml").read_text())
+    assert _planned(_snakemake(root, study_copy, "-n")) == {}
+    cfg["qm"]["alpha"] = 0.25
+    (study_copy / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    jobs = _planned(_snakemake(root, study_copy, "-n"))
+    assert jobs.get("excite_pigment") == 4 and jobs.get("sweep_epsilon") == 4
+    assert jobs.get("tabulate_shifts") == 1 and jobs.get("plot_study") == 1
+    for upstream in ("take_inventory", "extract_pigment", "measure_environment",
+                     "tabulate_environment"):
+        assert upstream not in jobs, jobs
+
+
+def test_added_mutant_reuses_unchanged_qm(root, study_copy):
+    cfg = yaml.safe_load((study_copy / "config/config.yaml").read_text())
+    cfg["variants"]["A_I6E_bis"] = {"structure": str(root / "config/demo/pcd2_A_I6E.pdb"),
+                                    "parent": "wt"}
+    cfg["sweep"]["enabled"] = False
+    (study_copy / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    jobs = _planned(_snakemake(root, study_copy, "-n"))
+    # before the new inventory exists, only it and the study tables are planned
+    assert jobs.get("take_inventory") == 1 and "excite_pigment" not in jobs, jobs
+    p = _snakemake(root, study_copy)
+    assert p.returncode == 0, p.stderr[-3000:]
+    ran = p.stdout + p.stderr
+    # after the checkpoint: the new variant's two pigments, and no job of the old variants
+    assert ran.count("(Rule: excite_pigment)") == 2
+    assert ran.count("(Rule: extract_pigment)") == 2
+    import json
+    for pid in ("A_HC4101", "B_HC4101"):
+        r = json.loads((study_copy / f"results/A_I6E_bis/pigments/{pid}/excited_states.json")
+                       .read_text())
+        assert r["cache"] == "reused"
+        log = (study_copy / f"logs/excite_pigment/A_I6E_bis/{pid}.log").read_text()
+        assert "reusing" in log and "SCF converged" not in log
