@@ -18,11 +18,15 @@ rule tabulate_shifts:
             caption="../config/report/variant_shifts.rst",
             category="Tables",
         ),
+        pairs=f"{RESULTS}/tables/branch_pairs.tsv",
     log:
         f"{LOGS}/tabulate_shifts/all.log",
     params:
         reference=REFERENCE,
         branches=config.get("branches", {}),
+        reference_structure=config["variants"][REFERENCE]["structure"],
+        altloc=config.get("altloc", "occupancy"),
+        pigments=config.get("pigments", {}),
     conda:
         "../config/envs/siteshift.yaml"
     script:

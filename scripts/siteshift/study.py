@@ -257,15 +257,39 @@ def environment_table(environment_files, out_tsv):
     return df
 
 
-def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None):
+def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None,
+                 out_pairs=None, reference_structure=None, altloc="occupancy", library=None):
+    """Site-energy, branch-shift and variant-shift tables (and the pair list used)."""
     from .aggregate import auto_pairs, branch_shifts, site_energies, variant_shifts
     sites = site_energies(result_files)
     branches = branches or {}
     pairs = [tuple(p) for p in branches.get("pairs", [])]
+    pair_rows = [{"name": n, "pigment_a": a, "pigment_b": b, "source": "config"}
+                 for n, a, b in pairs]
     if branches.get("auto"):
         known = {(a, b) for _n, a, b in pairs}
-        pairs += [p for p in auto_pairs(sorted(set(sites.pigment_id)))
-                  if (p[1], p[2]) not in known]
+        found = []
+        if reference_structure:
+            from .pairing import auto_pairs_by_superposition
+            atoms = read_structure(reference_structure, altloc)
+            found = [r for r in auto_pairs_by_superposition(atoms, library or load_library(),
+                                                            sorted(set(sites.ccd_code)))
+                     if (r["pigment_a"], r["pigment_b"]) not in known]
+            for r in found:
+                log.info("auto pair %s: chains %s/%s superposed on %d CA, RMSD %.3f A; partner "
+                         "%.2f A away after superposition", r["name"], r["chain_a"],
+                         r["chain_b"], r["n_ca"], r["rmsd_A"], r["distance_A"])
+            pair_rows += [{**r, "source": "superposition"} for r in found]
+            pairs += [(r["name"], r["pigment_a"], r["pigment_b"]) for r in found]
+        if not found:
+            extra = [p for p in auto_pairs(sorted(set(sites.pigment_id)))
+                     if (p[1], p[2]) not in known]
+            pairs += extra
+            pair_rows += [{"name": n, "pigment_a": a, "pigment_b": b,
+                           "source": "equal residue numbers"} for n, a, b in extra]
+    if out_pairs:
+        io.write_tsv(out_pairs, pd.DataFrame(pair_rows, columns=sorted(
+            {k for r in pair_rows for k in r}) or ["name", "pigment_a", "pigment_b", "source"]))
     for _n, a, b in pairs:
         for pid in (a, b):
             if pid not in set(sites.pigment_id):
