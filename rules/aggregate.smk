@@ -51,6 +51,12 @@ rule plot_study:
             category="Plots",
         ),
         spectrum_svg=f"{RESULTS}/plots/spectrum.svg",
+        shifts=report(
+            f"{RESULTS}/plots/variant_shifts.png",
+            caption="../config/report/plot_shifts.rst",
+            category="Plots",
+        ),
+        shifts_svg=f"{RESULTS}/plots/variant_shifts.svg",
     log:
         f"{LOGS}/plot_study/all.log",
     params:

@@ -82,8 +82,31 @@ def all_environments(wildcards):
     ]
 
 
-def qm_mem_mb(wildcards, attempt):
-    return int(QM.get("max_memory_mb", 4000) * 1.5 * attempt)
+def _basis_estimate(model_json):
+    """Rough basis size of a QM model: ~14 functions per heavy atom, 5 per H (def2-SVP-like)."""
+    import json
+
+    try:
+        els = json.loads(Path(model_json).read_text())["elements"]
+    except (OSError, ValueError, KeyError):
+        return None
+    return 14 * sum(e != "H" for e in els) + 5 * sum(e == "H" for e in els)
+
+
+def qm_mem_mb(wildcards, input, attempt):
+    """Memory scaled by model size: two density-fitted 3-index tensors (full and long range) of
+    ~3 nao auxiliary functions, nao²/2 pairs, 8 bytes, plus 1.5 GB; at least the PySCF budget
+    × 1.5; doubled on a retry."""
+    floor = QM.get("max_memory_mb", 4000) * 1.5
+    nao = _basis_estimate(getattr(input, "model", ""))
+    est = 1500 + 2 * 3 * nao ** 3 / 2 * 8 / 1e6 if nao else floor
+    return int(max(floor, est) * attempt)
+
+
+def qm_runtime(wildcards, input, attempt):
+    """Minutes scaled by model size (cubic in the basis), doubled on a retry."""
+    nao = _basis_estimate(getattr(input, "model", ""))
+    return int((10 + 2 * (nao / 100) ** 3 if nao else 240) * attempt)
 
 
 def sweep_pigments(variant):

@@ -10,7 +10,7 @@ rule tune_omega:
     threads: max(QM.get("threads", 1), 2)  # every excitation waits on it; capped at --cores
     resources:
         mem_mb=qm_mem_mb,
-        runtime=120,
+        runtime=qm_runtime,
     params:
         qm=QM,
     conda:
@@ -33,7 +33,7 @@ rule excite_pigment:
     threads: QM.get("threads", 1)
     resources:
         mem_mb=qm_mem_mb,
-        runtime=240,
+        runtime=qm_runtime,
     params:
         qm=QM,
         cache=f"{RESULTS}/qm_cache",

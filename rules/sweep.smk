@@ -11,7 +11,7 @@ rule sweep_epsilon:
     threads: QM.get("threads", 1)
     resources:
         mem_mb=qm_mem_mb,
-        runtime=600,
+        runtime=qm_runtime,
     params:
         qm=QM,
         grid=SWEEP.get("eps_static", [2.0, 4.0, 8.0, 16.0]),

@@ -2,7 +2,7 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.plots import plot_site_energies, plot_spectra
+from siteshift.plots import plot_site_energies, plot_spectra, plot_variant_shifts
 from siteshift.study import setup_logging
 
 sm = snakemake  # noqa: F821
@@ -10,3 +10,4 @@ setup_logging(sm.log[0])
 plot_site_energies(sm.input.sites, sm.output.sites, sm.output.sites_svg)
 plot_spectra(list(sm.input.excitations), sm.output.spectrum, sm.output.spectrum_svg,
              fwhm_ev=sm.params.fwhm)
+plot_variant_shifts(sm.input.variants, sm.output.shifts, sm.output.shifts_svg)

@@ -84,3 +84,24 @@ def plot_sweep(df, out_png, out_svg=None):
     if out_svg:
         fig.savefig(out_svg)
     plt.close(fig)
+
+
+def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
+    """Bar chart of E(variant) − E(reference) per pigment and band, in meV."""
+    df = pd.read_csv(variants_tsv, sep="\t")
+    fig, ax = plt.subplots(figsize=(5.5, 3.4))
+    if len(df) and "delta_ev" in df:
+        df = df[df.status == "ok"]
+        df = df[df.band != "S1"] if (df.band != "S1").any() else df
+        labels = [f"{v}\n{p} {b}" for v, p, b in zip(df.variant, df.pigment_id, df.band)]
+        ax.bar(range(len(df)), df.delta_ev * 1000, color=["tab:red" if d < 0 else "tab:blue"
+                                                          for d in df.delta_ev])
+        ax.set_xticks(range(len(df)), labels, fontsize=7)
+        ax.axhline(0, color="k", lw=0.8)
+    ax.set_ylabel("shift vs reference (meV)")
+    ax.set_title("variant shifts (red: red-shifted)", fontsize=9)
+    fig.tight_layout()
+    fig.savefig(out_png, dpi=150)
+    if out_svg:
+        fig.savefig(out_svg)
+    plt.close(fig)
