@@ -11,6 +11,7 @@ validate(config, "config/schemas/config.schema.yaml")
 
 
 include: "rules/common.smk"
+include: "rules/mutate.smk"
 include: "rules/inventory.smk"
 include: "rules/extract.smk"
 include: "rules/environment.smk"

@@ -23,7 +23,16 @@ wildcard_constraints:
 
 
 def structure_of(wildcards):
-    return config["variants"][wildcards.variant]["structure"]
+    """The structure a variant is read from: its own file, or its in-silico mutant."""
+    v = config["variants"][wildcards.variant]
+    if v.get("mutations"):
+        return f"{RESULTS}/{wildcards.variant}/structure.pdb"
+    return v["structure"]
+
+
+def parent_structure(wildcards):
+    v = config["variants"][wildcards.variant]
+    return config["variants"][v["parent"]]["structure"]
 
 
 def inventory_rows(variant):

@@ -177,3 +177,17 @@ def test_added_mutant_reuses_unchanged_qm(root, study_copy):
         assert r["cache"] == "reused"
         log = (study_copy / f"logs/excite_pigment/A_I6E_bis/{pid}.log").read_text()
         assert "reusing" in log and "SCF converged" not in log
+
+
+def test_in_silico_mutant_variant(root, tmp_path):
+    cfg = _tiny_config(root)
+    cfg["variants"] = {"wt": cfg["variants"]["wt"],
+                       "fx": {"parent": "wt", "mutations": ["A:I6E"]}}
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path, "results/fx/inventory.tsv")
+    assert p.returncode == 0, p.stderr[-3000:]
+    assert "(Rule: mutate_structure)" in p.stdout + p.stderr
+    inv = pd.read_csv(tmp_path / "results/fx/inventory.tsv", sep="\t")
+    assert list(inv.pigment_id) == ["A_HC4101", "B_HC4101"]
+    assert "GLU A   6" in (tmp_path / "results/fx/structure.pdb").read_text()

@@ -16,12 +16,15 @@ def check_config(config: dict, root=".") -> dict:
         raise ConfigError(f"config key 'reference': {ref!r} is not one of the variants "
                           f"{sorted(variants)}")
     for name, v in variants.items():
-        p = Path(root) / v["structure"]
-        if not p.exists():
-            raise ConfigError(f"config key 'variants.{name}.structure': file {p} does not exist")
         if v.get("parent") and v["parent"] not in variants:
             raise ConfigError(f"config key 'variants.{name}.parent': {v['parent']!r} is not a "
                               "variant")
+        if v.get("mutations"):
+            _check_mutations(name, v, variants, root)
+            continue
+        p = Path(root) / v["structure"]
+        if not p.exists():
+            raise ConfigError(f"config key 'variants.{name}.structure': file {p} does not exist")
     d = config.get("dielectric") or {}
     if d.get("eps_min", 2.0) > d.get("eps_max", 20.0):
         raise ConfigError("config keys 'dielectric.eps_min' > 'dielectric.eps_max'")
@@ -37,3 +40,37 @@ def check_config(config: dict, root=".") -> dict:
             raise ConfigError(f"config key 'branches.pairs': pair {trip[0]!r} names "
                               f"{trip[1]} twice")
     return config
+
+
+def _check_mutations(name, v, variants, root):
+    """Mutations need a parent with its own (uncompressed PDB) file and must name residues that
+    exist with the stated wild-type amino acid."""
+    from .mutate import MutationError, ONE_TO_THREE, parse_mutation
+    key = f"variants.{name}"
+    if v.get("structure"):
+        raise ConfigError(f"config key '{key}': give either structure or parent + mutations")
+    parent = variants.get(v.get("parent"))
+    if not parent or not parent.get("structure"):
+        raise ConfigError(f"config key '{key}.parent': mutations need a parent variant with its "
+                          "own structure file")
+    path = Path(root) / parent["structure"]
+    if not path.exists() or not str(path).lower().endswith((".pdb", ".ent")):
+        raise ConfigError(f"config key '{key}.parent': in-silico mutations need the parent as an "
+                          f"uncompressed PDB file, got {path}")
+    import MDAnalysis as mda
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        u = mda.Universe(str(path))
+    for text in v["mutations"]:
+        try:
+            chain, wt, num, _icode, _new = parse_mutation(text)
+        except MutationError as exc:
+            raise ConfigError(f"config key '{key}.mutations': {exc}") from None
+        res = u.select_atoms(f"chainID {chain} and resid {num} and name CA")
+        if len(res) == 0:
+            raise ConfigError(f"config key '{key}.mutations': {text}: no residue {chain}:{num} "
+                              f"in {path}")
+        if res.resnames[0] != wt:
+            raise ConfigError(f"config key '{key}.mutations': {text}: residue {chain}:{num} in "
+                              f"{path} is {res.resnames[0]}, not {wt}")
