@@ -1,0 +1,58 @@
+"""Small modules: band naming, atomic writes, input hashing, QM presets."""
+import json
+
+import numpy as np
+import pytest
+
+from siteshift.bands import assign_bands, axis_cosines
+from siteshift.io import atomic_write_text, stable_hash, write_json
+from siteshift.settings import QM_PRESETS, qm_settings
+
+
+def _state(e, f, d):
+    return {"energy_ev": e, "oscillator_strength": f, "transition_dipole_debye": d}
+
+
+def test_qy_qx_from_axes():
+    # Gouterman picture: Qy lowest and polarised along the Qy axis, Qx above it along the other
+    coords = np.array([[0, 0, 0], [0, 4.0, 0], [0, 0, 0], [4.0, 0, 0]], float)
+    axes = {"Qy": (0, 1), "Qx": (2, 3)}
+    states = [_state(1.6, 0.3, [0.2, 6.0, 0.1]), _state(2.1, 0.05, [4.0, 0.5, 0.0]),
+              _state(2.9, 1.0, [1.0, 1.2, 0.0])]
+    assign_bands(states, coords, axes)
+    assert [s["band"] for s in states] == ["Qy", "Qx", None]
+    assert states[0]["axis_cos"]["Qy"] > 0.99
+    assert axis_cosines([0, 0, 1], coords, (0, 1)) == 0.0
+
+
+def test_bright_state_without_axes():
+    states = [_state(3.0, 0.001, [0.1, 0, 0]), _state(3.5, 0.4, [3, 0, 0])]
+    assign_bands(states, np.zeros((2, 3)))
+    assert [s["band"] for s in states] == [None, "bright"]
+
+
+def test_atomic_write_leaves_no_partial_file(tmp_path):
+    p = tmp_path / "a" / "x.json"
+    write_json(p, {"e": np.float64(1.5), "v": np.arange(2)})
+    assert json.loads(p.read_text()) == {"e": 1.5, "v": [0, 1]}
+    with pytest.raises(TypeError):
+        write_json(p, {"bad": object()})
+    assert json.loads(p.read_text()) == {"e": 1.5, "v": [0, 1]}  # old content intact
+    assert not [f for f in p.parent.iterdir() if f.name.endswith(".part")]
+    atomic_write_text(p, "ok")
+    assert p.read_text() == "ok"
+
+
+def test_stable_hash_ignores_float_noise_but_not_changes():
+    a = {"x": [1.0000000001, 2.0], "s": {"eps": 4.0}}
+    b = {"s": {"eps": 4.0}, "x": [1.0, 2.0]}
+    assert stable_hash(a) == stable_hash(b)
+    assert stable_hash(a) != stable_hash({"x": [1.001, 2.0], "s": {"eps": 4.0}})
+
+
+def test_presets_and_explicit_keys():
+    s = qm_settings({"preset": "demo"}, eps_static=4.0, eps_optical=2.0, omega=0.25)
+    assert (s.basis, s.grid_level, s.nstates) == ("6-31g", 1, 3)
+    s = qm_settings({"preset": "full", "basis": "def2-tzvp"}, nstates=6)
+    assert s.basis == "def2-tzvp" and s.grid_level == QM_PRESETS["full"]["grid_level"]
+    assert s.nstates == 6 and s.eps_screen == 1.0
