@@ -111,3 +111,15 @@ def test_eps_for_target_interpolates_with_bracket():
     r = eps_for_target(df, {**t, "kind": "site", "pigment": "B", "value_ev": 4.0},
                        {"p": ("A", "B")})
     assert r["bracket_low"] == 4.0 and r["eps_static"] == pytest.approx(4 + 4 * 0.05 / 0.07)
+
+
+def test_single_variant_study_gives_empty_but_typed_tables(tmp_path):
+    from siteshift.plots import plot_variant_shifts
+    from siteshift.io import write_tsv
+    sites = site_energies([_result(tmp_path, "wt", "A_HC4101", [4.0, 4.3], [0.001, 0.9])])
+    vs = variant_shifts(sites, "wt")
+    br = branch_shifts(sites, [])
+    assert vs.empty and "delta_ev" in vs.columns and "delta_ev" in br.columns
+    write_tsv(tmp_path / "vs.tsv", vs)
+    plot_variant_shifts(tmp_path / "vs.tsv", tmp_path / "vs.png")
+    assert (tmp_path / "vs.png").stat().st_size > 1000

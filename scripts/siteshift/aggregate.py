@@ -82,7 +82,15 @@ def branch_shifts(sites: pd.DataFrame, pairs) -> pd.DataFrame:
                              "eps_static_a": ra.eps_static, "eps_static_b": rb.eps_static,
                              "omega_bohr_inv": ra.omega_bohr_inv, "basis": ra.basis,
                              "status": "ok"})
-    return pd.DataFrame(rows)
+    return pd.DataFrame(rows, columns=BRANCH_COLUMNS)
+
+
+BRANCH_COLUMNS = ["variant", "pair", "pigment_a", "pigment_b", "band", "energy_a_ev",
+                  "energy_b_ev", "delta_ev", "delta_cm1", "delta_nm", "redder", "eps_static_a",
+                  "eps_static_b", "omega_bohr_inv", "basis", "status"]
+VARIANT_COLUMNS = ["variant", "reference", "pigment_id", "band", "energy_variant_ev",
+                   "energy_reference_ev", "delta_ev", "delta_cm1", "delta_nm",
+                   "eps_static_variant", "eps_static_reference", "same_qm_inputs", "status"]
 
 
 def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
@@ -111,7 +119,7 @@ def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
                              "eps_static_variant": va.eps_static,
                              "eps_static_reference": vr.eps_static,
                              "same_qm_inputs": bool(va.qm_hash == vr.qm_hash), "status": "ok"})
-    return pd.DataFrame(rows)
+    return pd.DataFrame(rows, columns=VARIANT_COLUMNS)
 
 
 def spectrum(energies_ev, strengths, grid_ev, fwhm_ev=0.1):

@@ -87,8 +87,12 @@ def plot_sweep(df, out_png, out_svg=None):
 
 
 def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
-    """Bar chart of E(variant) − E(reference) per pigment and band, in meV."""
-    df = pd.read_csv(variants_tsv, sep="\t")
+    """Bar chart of E(variant) − E(reference) per pigment and band, in meV (an empty frame when
+    the study has only the reference)."""
+    try:
+        df = pd.read_csv(variants_tsv, sep="\t")
+    except pd.errors.EmptyDataError:
+        df = pd.DataFrame()
     fig, ax = plt.subplots(figsize=(5.5, 3.4))
     if len(df) and "delta_ev" in df:
         df = df[df.status == "ok"]
