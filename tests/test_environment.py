@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 from siteshift.dielectric import DielectricModel, DielectricError
-from siteshift.environment import (KYTE_DOOLITTLE, EnvironmentSettings, environment_arrays,
+from siteshift.environment import (KYTE_DOOLITTLE, EnvironmentSettings,
                                    gaussian_density, radius, sasa, site_metrics)
 
 
@@ -113,19 +113,15 @@ def test_dielectric_bounds_and_errors():
 def test_19hc_burial_and_dielectric_ordering(hc19_path, library):
     # Real structure: PDB 19HC. Ranking by burial must be the SASA ranking, and the most buried
     # heme must get a lower ε_static than the most exposed one.
-    from siteshift.inventory import model_for, pigment_residues
+    from siteshift.inventory import pigment_residues
     from siteshift.structure import read_structure
+    from siteshift.study import measure_site
     atoms = read_structure(hc19_path)
     pigs, _ = pigment_residues(atoms, library)
     model = DielectricModel()
     rows = []
     for r in pigs:
-        m = model_for(r, library)
-        heavy = [i for i, (e, o) in enumerate(zip(m.elements, m.origin))
-                 if e != "H" and o == "structure"]
-        env = environment_arrays(atoms, np.isin(atoms.indices, r.atoms.indices))
-        met = site_metrics(m.coords[heavy], [m.elements[i] for i in heavy], env,
-                           EnvironmentSettings(sasa_points=240))
+        met = measure_site(atoms, r, library, EnvironmentSettings(sasa_points=240))
         rows.append((r.id, met, model.assign(r.id, met)))
     assert len(rows) == 18
     by_burial = [r[0] for r in sorted(rows, key=lambda r: -r[1]["burial"])]

@@ -1,5 +1,4 @@
 """Automatic branch pairing by chain superposition."""
-import pytest
 
 from siteshift.pairing import auto_pairs_by_superposition, superpose_chains
 from siteshift.structure import read_structure

@@ -9,9 +9,7 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
-from dataclasses import asdict
 from pathlib import Path
 
 import numpy as np
@@ -80,9 +78,9 @@ def cmd_extract(args):
 
 def cmd_environment(args):
     from .dielectric import DielectricModel
-    from .environment import EnvironmentSettings, environment_arrays, site_metrics
-    from .inventory import model_for, pigment_residues
+    from .inventory import pigment_residues
     from .structure import read_structure
+    from .study import measure_site
     lib = _library(args)
     atoms = read_structure(args.structure, args.altloc)
     pigs, _ = pigment_residues(atoms, lib)
@@ -93,12 +91,7 @@ def cmd_environment(args):
     model = DielectricModel(mode=args.mode, exposed_medium=args.exposed_medium)
     out = []
     for r in pigs:
-        m = model_for(r, lib)
-        heavy = [i for i, (e, o) in enumerate(zip(m.elements, m.origin))
-                 if e != "H" and o == "structure"]
-        env = environment_arrays(atoms, np.isin(atoms.indices, r.atoms.indices))
-        metrics = site_metrics(m.coords[heavy], [m.elements[i] for i in heavy], env,
-                               EnvironmentSettings())
+        metrics = measure_site(atoms, r, lib)
         d = model.assign(r.id, metrics)
         out.append({"pigment_id": r.id, "metrics": metrics, "dielectric": d})
         print(f"{r.id:<14s} eps_static={d['eps_static']:6.2f} eps_optical={d['eps_optical']:5.2f}"

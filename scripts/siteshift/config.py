@@ -45,7 +45,7 @@ def check_config(config: dict, root=".") -> dict:
 def _check_mutations(name, v, variants, root):
     """Mutations need a parent with its own (uncompressed PDB) file and must name residues that
     exist with the stated wild-type amino acid."""
-    from .mutate import MutationError, ONE_TO_THREE, parse_mutation
+    from .mutate import MutationError, parse_mutation
     key = f"variants.{name}"
     if v.get("structure"):
         raise ConfigError(f"config key '{key}': give either structure or parent + mutations")

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import platform
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass
 
 import numpy as np
 import pyscf

@@ -13,6 +13,15 @@ from .engine import NM_EV  # noqa: E402
 from .io import read_json  # noqa: E402
 
 
+def _save(fig, out_png, out_svg=None):
+    """PNG (150 dpi) and, if asked, SVG; closes the figure."""
+    fig.tight_layout()
+    fig.savefig(out_png, dpi=150)
+    if out_svg:
+        fig.savefig(out_svg)
+    plt.close(fig)
+
+
 def plot_site_energies(sites_tsv, out_png, out_svg=None):
     df = pd.read_csv(sites_tsv, sep="\t")
     df = df[df.band != "S1"] if (df.band != "S1").any() else df
@@ -30,11 +39,7 @@ def plot_site_energies(sites_tsv, out_png, out_svg=None):
     ax.set_ylabel("site energy (eV)")
     ax.grid(axis="y", alpha=0.3)
     ax.legend(fontsize=8, frameon=False)
-    fig.tight_layout()
-    fig.savefig(out_png, dpi=150)
-    if out_svg:
-        fig.savefig(out_svg)
-    plt.close(fig)
+    _save(fig, out_png, out_svg)
 
 
 def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
@@ -58,11 +63,7 @@ def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
         a.set_ylabel("absorbance (arb. units)")
         a.legend(fontsize=8, frameon=False)
     fig.suptitle(f"Simulated absorption (Gaussian FWHM {fwhm_ev} eV)", fontsize=9)
-    fig.tight_layout()
-    fig.savefig(out_png, dpi=150)
-    if out_svg:
-        fig.savefig(out_svg)
-    plt.close(fig)
+    _save(fig, out_png, out_svg)
 
 
 def plot_sweep(df, out_png, out_svg=None):
@@ -79,11 +80,7 @@ def plot_sweep(df, out_png, out_svg=None):
     ax.set_xlabel("ε_static (uniform)")
     ax.set_ylabel("excitation energy (eV)")
     ax.grid(alpha=0.3)
-    fig.tight_layout()
-    fig.savefig(out_png, dpi=150)
-    if out_svg:
-        fig.savefig(out_svg)
-    plt.close(fig)
+    _save(fig, out_png, out_svg)
 
 
 def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
@@ -104,8 +101,4 @@ def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
         ax.axhline(0, color="k", lw=0.8)
     ax.set_ylabel("shift vs reference (meV)")
     ax.set_title("variant shifts (red: red-shifted)", fontsize=9)
-    fig.tight_layout()
-    fig.savefig(out_png, dpi=150)
-    if out_svg:
-        fig.savefig(out_svg)
-    plt.close(fig)
+    _save(fig, out_png, out_svg)

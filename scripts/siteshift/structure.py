@@ -1,7 +1,6 @@
 """Reading structures (PDB / mmCIF, gzipped or not) and finding pigments in them."""
 from __future__ import annotations
 
-import gzip
 import warnings
 from dataclasses import dataclass
 from pathlib import Path

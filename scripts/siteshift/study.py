@@ -18,7 +18,7 @@ from .environment import EnvironmentSettings, environment_arrays, site_metrics
 from .inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
 from .library import load_library
 from .qmmodel import QMModel
-from .structure import StructureError, read_structure, residues_of
+from .structure import StructureError, read_structure
 
 log = logging.getLogger("siteshift")
 
@@ -126,6 +126,17 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
              pigment_id, model.formula, len(model.elements), model.charge, model.multiplicity,
              model.origin.count("cap"), len(cluster), len(cluster.residues), cutoff_A)
     return rec
+
+
+def measure_site(atoms, res, library, settings: EnvironmentSettings | None = None):
+    """Metrics of one pigment residue in a structure: its QM-model heavy atoms (taken from the
+    structure, tails cut as in the QM model) against every other heavy atom."""
+    m = model_for(res, library)
+    heavy = [i for i, (e, o) in enumerate(zip(m.elements, m.origin))
+             if e != "H" and o == "structure"]
+    env = environment_arrays(atoms, np.isin(atoms.indices, res.atoms.indices))
+    return site_metrics(m.coords[heavy], [m.elements[i] for i in heavy], env,
+                        settings or EnvironmentSettings())
 
 
 def environment_stage(structure, model_json, out_json, settings: EnvironmentSettings,
