@@ -16,6 +16,7 @@ rule sweep_epsilon:
         qm=QM,
         grid=SWEEP.get("eps_static", [2.0, 4.0, 8.0, 16.0]),
         n2=SWEEP.get("n2", 2.0),
+        measure_cold_start=SWEEP.get("measure_cold_start", False),
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -9,4 +9,5 @@ sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 configure_threads(sm.threads)
 sweep_stage(sm.input.model, sm.output.json, sm.params.qm, sm.params.grid, n2=sm.params.n2,
-            tuning_json=sm.input.tuning or None, variant=sm.wildcards.variant)
+            tuning_json=sm.input.tuning or None, variant=sm.wildcards.variant,
+            measure_cold_start=sm.params.measure_cold_start)

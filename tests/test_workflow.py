@@ -31,6 +31,7 @@ def study(root, tmp_path_factory):
     (work / "config").mkdir()
     cfg = _tiny_config(root)
     cfg["sweep"] = {"enabled": True, "eps_static": [2.0, 8.0], "n2": 2.0,
+                    "measure_cold_start": True,
                     "pigments": ["A_HC4101", "B_HC4101"],
                     "targets": [{"name": "split", "kind": "branch", "pair": "HC4-pocket",
                                  "variant": "wt", "band": "S1", "value_ev": 0.0}]}

@@ -26,6 +26,7 @@ import pyscf
 from pyscf import df, dft, gto, lib
 from pyscf.data import nist
 
+from .bands import assign_bands
 from .functional import SRSH
 
 HARTREE2EV = nist.HARTREE2EV
@@ -499,7 +500,6 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
             "pairs": pairs[k],
             "band": None,
         })
-    from .bands import assign_bands
     assign_bands(states, coords, band_axes, bright_threshold)
     result = {
         "scf_energy_hartree": float(mf.e_tot),

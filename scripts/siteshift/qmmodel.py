@@ -109,6 +109,14 @@ def electrons(elements, charge) -> int:
     return int(sum(z(e) for e in elements)) - int(charge)
 
 
+def check_charge_spin(pigment_id, elements, charge, multiplicity, fix):
+    """Raise ModelError if the electron count cannot have this multiplicity."""
+    nelec = electrons(elements, charge)
+    if (nelec + multiplicity - 1) % 2:
+        raise ModelError(f"pigment {pigment_id}: charge {charge} and multiplicity {multiplicity} "
+                         f"are impossible for {formula(elements)} ({nelec} electrons); {fix}")
+
+
 def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, ptype,
                    charge=None, multiplicity=None, check_spin=True) -> QMModel:
     """The QM model of one pigment residue.
@@ -193,11 +201,9 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
             out_n.append(f"CAP_{x_name}"); out_o.append("cap")
     charge = ptype.charge if charge is None else int(charge)
     mult = ptype.multiplicity if multiplicity is None else int(multiplicity)
-    nelec = electrons(out_e, charge)
-    if check_spin and (nelec + mult - 1) % 2:
-        raise ModelError(f"pigment {pigment_id}: charge {charge} and multiplicity {mult} are "
-                         f"impossible for {formula(out_e)} ({nelec} electrons); fix the pigment "
-                         "library entry or the study's pigment override")
+    if check_spin:
+        check_charge_spin(pigment_id, out_e, charge, mult,
+                          "fix the pigment library entry or the study's pigment override")
     return QMModel(pigment_id, code, out_e, np.array(out_x), out_n, out_o, charge, mult,
                    dropped=[d for d in dropped if d in have], missing=missing, problems=problems)
 
@@ -276,8 +282,6 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel
         problems.append(f"axial ligand {tag} ({lig_atom}, {dist:.2f} A) in QM, charge {q:+d}")
     out = QMModel(model.pigment_id, model.code, elements, np.array(coords), names, origin,
                   charge, model.multiplicity, model.dropped, model.missing, problems)
-    nelec = electrons(out.elements, out.charge)
-    if (nelec + out.multiplicity - 1) % 2:
-        raise ModelError(f"pigment {model.pigment_id} with axial ligands: charge {out.charge} and "
-                         f"multiplicity {out.multiplicity} are impossible ({nelec} electrons)")
+    check_charge_spin(model.pigment_id, out.elements, out.charge, out.multiplicity,
+                      "check the axial ligands' protonation or the pigment override")
     return out

@@ -319,10 +319,11 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
 
 
 def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
-                variant=None):
+                variant=None, measure_cold_start=False):
     """Excited states of one pigment over a grid of ε_static (uniform: SRSH screening and PCM
     together; ε_optical = min(n², ε_static)). Each point's SCF starts from the previous point's
-    density (warm start); cycles with and without it are recorded for the first two points."""
+    density (warm start). measure_cold_start: also converge the second point from the default
+    guess (one extra SCF) and record its cycles, to show what the warm start saves."""
     from .engine import build_molecule, make_scf, run_scf
     from .settings import qm_settings
     rec = io.read_json(model_json)
@@ -336,7 +337,7 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
                      s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
                      keep_density=True)
         cold = None
-        if k == 1:  # the same point from the default guess, to measure what the warm start saves
+        if k == 1 and measure_cold_start:
             mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                                  rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
             cold = run_scf(make_scf(mol, s))[2]
