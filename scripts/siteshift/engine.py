@@ -23,11 +23,14 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 import pyscf
+from threadpoolctl import threadpool_limits
 from pyscf import df, dft, gto, lib
 from pyscf.data import nist
 
 from .bands import assign_bands
+from .dfjk import CompactDF
 from .functional import SRSH
+from .xcgrid import DenseNumInt, MOKernel
 
 HARTREE2EV = nist.HARTREE2EV
 AU2DEBYE = nist.AU2DEBYE
@@ -75,6 +78,10 @@ class ExciteSettings:
     conv_tol: float = 1e-9               # SCF energy, Hartree
     response_tol: float = 1e-6           # Davidson residual
     max_memory_mb: int = 4000
+    df_storage: str = "float32"          # fitted tensors in memory: "float32", "float64" or "pyscf"
+    response_grid_level: int | None = None   # XC-kernel grid of the fast TDA (None: SCF grid)
+    occ_window_ev: float | None = None   # fast TDA: occupied orbitals within this of the HOMO
+    vir_window_ev: float | None = None   # fast TDA: virtual orbitals within this of the LUMO
 
     def check(self) -> None:
         if self.eps_static < 1.0 or self.eps_optical < 1.0:
@@ -93,6 +100,13 @@ class ExciteSettings:
             raise EngineError(f"solver must be 'fast' or 'stock', got {self.solver!r}")
         if self.nstates < 1:
             raise EngineError(f"nstates must be >= 1, got {self.nstates}")
+        if self.df_storage not in ("float32", "float64", "pyscf"):
+            raise EngineError(f"df_storage must be 'float32', 'float64' or 'pyscf', got "
+                              f"{self.df_storage!r}")
+        for k in ("occ_window_ev", "vir_window_ev"):
+            v = getattr(self, k)
+            if v is not None and v <= 0:
+                raise EngineError(f"{k} must be > 0 eV or null (no window), got {v}")
 
     @property
     def eps_screen(self) -> float:
@@ -143,12 +157,17 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
     """An (unrun) RKS/UKS object with the SRSH functional, DF and PCM as the settings say."""
     functional = functional or settings.functional
     mf = dft.RKS(mol) if mol.spin == 0 else dft.UKS(mol)
+    if mol.spin == 0:
+        mf._numint = DenseNumInt()
     mf.xc = functional.xc
     mf.grids.level = settings.grid_level
     mf.conv_tol = settings.conv_tol
     mf.max_memory = settings.max_memory_mb
     if settings.density_fitting:
         mf = mf.density_fit(auxbasis=settings.auxbasis)
+        if settings.df_storage != "pyscf":
+            mf.with_df = CompactDF(mol, auxbasis=mf.with_df.auxbasis, storage=settings.df_storage,
+                                   block_mb=min(1000, max(100, settings.max_memory_mb // 8)))
     if settings.solvated if solvated is None else solvated:
         mf = _attach_pcm(mf, settings, settings.eps_static)
     return mf
@@ -245,10 +264,14 @@ class FastTDA:
     A x = Δε x + 2 (ia|jb) x − [c_SR·(ij|ab) + c_LR·(ij|ab)_LR] x + f_xc x + 2 Vᵀ M V x
 
     Coulomb and exchange blocks come from density-fitted three-index tensors in the MO basis,
-    (pq|rs) ≈ Σ_P B^P_pq B^P_rs; the long-range exchange uses the erf-attenuated tensor. The XC
-    kernel is PySCF's (``nr_rks_fxc_st``) on the ground-state grid. The PCM term uses the surface
-    potential integrals V_g,ia computed once, and M = ½(K⁻¹R + RᵀK⁻ᵀ) for ε_optical (or ε_static for
-    equilibrium solvation), which is the same operator PySCF applies in the AO basis.
+    (pq|rs) ≈ Σ_P B^P_pq B^P_rs; the long-range exchange uses the erf-attenuated tensor. The
+    (ab) blocks are kept packed (a ≥ b) in the storage precision of the ground state's fitted
+    tensors and unpacked one auxiliary block at a time. The XC kernel is applied in the MO basis
+    (:class:`siteshift.xcgrid.MOKernel`) on the SCF grid or a coarser response grid. The PCM
+    term uses the surface potential integrals V_g,ia computed once, and
+    M = ½(K⁻¹R + RᵀK⁻ᵀ) for ε_optical (or ε_static for equilibrium solvation), which is the same
+    operator PySCF applies in the AO basis. An optional orbital window keeps occupied orbitals
+    within ``occ_window_ev`` of the HOMO and virtuals within ``vir_window_ev`` of the LUMO.
     """
 
     def __init__(self, mf, settings: ExciteSettings, log=None):
@@ -260,59 +283,88 @@ class FastTDA:
         mo_occ = np.asarray(mf.mo_occ)
         C = np.asarray(mf.mo_coeff)
         e = np.asarray(mf.mo_energy)
-        self.orbo, self.orbv = C[:, mo_occ == 2], C[:, mo_occ == 0]
+        occ, vir = np.nonzero(mo_occ == 2)[0], np.nonzero(mo_occ == 0)[0]
+        if settings.occ_window_ev:
+            occ = occ[e[occ] >= e[occ].max() - settings.occ_window_ev / HARTREE2EV]
+        if settings.vir_window_ev:
+            vir = vir[e[vir] <= e[vir].min() + settings.vir_window_ev / HARTREE2EV]
+        self.occ_index, self.vir_index = occ, vir
+        self.nocc_all, self.nvir_all = int((mo_occ == 2).sum()), int((mo_occ == 0).sum())
+        self.orbo, self.orbv = C[:, occ], C[:, vir]
         self.nocc, self.nvir = self.orbo.shape[1], self.orbv.shape[1]
-        self.e_ia = (e[mo_occ == 0][None, :] - e[mo_occ == 2][:, None])
+        self.e_ia = (e[vir][None, :] - e[occ][:, None])
         ni = mf._numint
         self.omega, self.c_lr, self.c_sr = ni.rsh_and_hybrid_coeff(mf.xc, mol.spin)
         # exact exchange: hyb * K_full + (alpha - hyb) * K_LR  (PySCF's convention)
         t0 = time.perf_counter()
         self._build_df(mol)
         t1 = time.perf_counter()
-        self.rho0, self.vxc, self.fxc = ni.cache_xc_kernel(mol, mf.grids, mf.xc, C, mo_occ, 1)
-        self.fxc = self.fxc * 0.5
+        grids = mf.grids
+        if settings.response_grid_level is not None and \
+                settings.response_grid_level != settings.grid_level:
+            grids = dft.gen_grid.Grids(mol)
+            grids.level = settings.response_grid_level
+            grids.build()
+        self.response_grid_points = int(grids.weights.size)
+        budget = max(500, settings.max_memory_mb // 2)
+        self.kernel_xc = MOKernel(mf, grids, self.orbo, self.orbv, cache_mb=budget,
+                                  max_memory_mb=max(500, settings.max_memory_mb // 8))
         t2 = time.perf_counter()
         self.pcm_eps = None
         self.V = None
         if hasattr(mf, "with_solvent"):
             self._build_pcm(mf, settings)
         t3 = time.perf_counter()
-        self.log(f"fast TDA set-up: DF tensors {t1 - t0:.1f} s, XC kernel {t2 - t1:.1f} s, "
-                 f"PCM operator {t3 - t2:.1f} s (nocc={self.nocc}, nvir={self.nvir})")
+        self.log(f"fast TDA set-up: DF tensors {t1 - t0:.1f} s, XC kernel {t2 - t1:.1f} s "
+                 f"({self.response_grid_points} points, orbital values "
+                 f"{'cached' if self.kernel_xc.cached else 'recomputed'}, "
+                 f"{self.kernel_xc.cache_mb:.0f} MB), PCM operator {t3 - t2:.1f} s "
+                 f"(window: {self.nocc}/{self.nocc_all} occupied, {self.nvir}/{self.nvir_all} "
+                 f"virtual)")
 
-    def _auxbasis(self, mol):
+    def _ao_blocks(self, mol, omega):
+        """Packed float64 blocks of the fitted AO tensor (the ground state's when it has one)."""
+        with_df = getattr(self.mf, "with_df", None)
+        if isinstance(with_df, CompactDF):
+            yield from with_df.blocks(omega or 0.0)
+            return
         aux = self.settings.auxbasis
-        if hasattr(self.mf, "with_df") and getattr(self.mf.with_df, "auxbasis", None):
-            aux = self.mf.with_df.auxbasis
-        return aux or df.make_auxbasis(mol, mp2fit=False)
+        if with_df is not None and getattr(with_df, "auxbasis", None):
+            aux = with_df.auxbasis
+        aux = aux or df.make_auxbasis(mol, mp2fit=False)
+        with mol.with_range_coulomb(omega or 0.0):
+            cderi = df.incore.cholesky_eri(mol, auxbasis=aux, aosym="s2")
+        blk = max(1, int(2e8 // (mol.nao * mol.nao)))
+        for p0, p1 in lib.prange(0, cderi.shape[0], blk):
+            yield p0, p1, cderi[p0:p1]
 
-    def _mo_tensors(self, mol, auxbasis, omega=None):
-        if omega is None:
-            cderi = df.incore.cholesky_eri(mol, auxbasis=auxbasis, aosym="s2")
-        else:
-            with mol.with_range_coulomb(omega):
-                cderi = df.incore.cholesky_eri(mol, auxbasis=auxbasis, aosym="s2")
-        naux = cderi.shape[0]
-        nao = mol.nao
-        Bov = np.empty((naux, self.nocc, self.nvir))
-        Boo = np.empty((naux, self.nocc, self.nocc))
-        Bvv = np.empty((naux, self.nvir, self.nvir))
-        blk = max(1, int(2e8 // (nao * nao)))
-        for p0, p1 in lib.prange(0, naux, blk):
-            ao = lib.unpack_tril(cderi[p0:p1])
-            half_o = lib.einsum("Pmn,mi->Pin", ao, self.orbo)
-            Bov[p0:p1] = lib.einsum("Pin,na->Pia", half_o, self.orbv)
-            Boo[p0:p1] = lib.einsum("Pin,nj->Pij", half_o, self.orbo)
-            Bvv[p0:p1] = lib.einsum("Pmn,ma,nb->Pab", ao, self.orbv, self.orbv)
-        return Bov, Boo, Bvv
+    def _mo_tensors(self, mol, omega=None, with_ov=True):
+        """B_ov (float64), B_oo (float64) and packed B_vv (storage precision) for one operator."""
+        store = np.float32 if self.settings.df_storage == "float32" else np.float64
+        o, v = self.orbo, self.orbv
+        Bov, Boo, Bvv = [], [], []
+        for _p0, _p1, blk in self._ao_blocks(mol, omega):
+            ao = lib.unpack_tril(blk)                               # (b, nao, nao)
+            nb, nao = ao.shape[0], ao.shape[1]
+            half_o = (ao.reshape(-1, nao) @ o).reshape(nb, nao, -1).transpose(0, 2, 1)
+            half_v = (ao.reshape(-1, nao) @ v).reshape(nb, nao, -1).transpose(0, 2, 1)
+            if with_ov:
+                Bov.append(half_o @ v)
+            Boo.append(half_o @ o)
+            Bvv.append(lib.pack_tril(np.ascontiguousarray(half_v @ v)).astype(store))
+        Bov = np.concatenate(Bov) if with_ov else None
+        return Bov, np.concatenate(Boo), np.concatenate(Bvv)
 
     def _build_df(self, mol):
-        aux = self._auxbasis(mol)
-        self.Bov, self.Boo, self.Bvv = self._mo_tensors(mol, aux)
-        if self.omega != 0 and abs(self.c_lr - self.c_sr) > 0:
-            self.Lov, self.Loo, self.Lvv = self._mo_tensors(mol, aux, omega=self.omega)
-        else:
-            self.Loo = self.Lvv = None
+        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+            self.Bov, self.Boo, self.Bvv = self._mo_tensors(mol)
+            if self.omega != 0 and abs(self.c_lr - self.c_sr) > 0:
+                _, self.Loo, self.Lvv = self._mo_tensors(mol, omega=self.omega, with_ov=False)
+            else:
+                self.Loo = self.Lvv = None
+        with_df = getattr(self.mf, "with_df", None)
+        if isinstance(with_df, CompactDF):
+            with_df.drop()  # the response no longer needs the AO tensors
 
     def _build_pcm(self, mf, settings):
         sol = _response_solvent(mf, settings)
@@ -342,20 +394,19 @@ class FastTDA:
         # Coulomb: 2 (ia|jb) x_jb
         t = lib.einsum("Pjb,xjb->xP", self.Bov, xs)
         out += 2.0 * lib.einsum("Pia,xP->xia", self.Bov, t)
-        # exact exchange: c (ij|ab) x_jb = Σ_P Σ_j B_ij (Σ_b B_ab x_jb)
+        # exact exchange: c (ij|ab) x_jb = Σ_P Σ_j B_ij (Σ_b B_ab x_jb), B_ab unpacked by blocks
+        nv = self.nvir
+        rows = max(1, int(2e8 // (nv * nv + len(xs) * self.nocc * nv)))
         for c, Boo, Bvv in ((self.c_sr, self.Boo, self.Bvv),
                             (self.c_lr - self.c_sr, self.Loo, self.Lvv)):
             if c == 0 or Boo is None:
                 continue
-            tmp = lib.einsum("Pab,xjb->xPja", Bvv, xs)
-            out -= c * lib.einsum("Pij,xPja->xia", Boo, tmp)
-        # XC kernel on the grid (AO basis, batched over trial vectors)
-        mf = self.mf
-        dms = lib.einsum("xov,qv,po->xpq", xs * 2, self.orbv, self.orbo)
-        v1 = mf._numint.nr_rks_fxc_st(mf.mol, mf.grids, mf.xc, None, dms, 0, True, self.rho0,
-                                      self.vxc, self.fxc,
-                                      max_memory=max(2000, self.settings.max_memory_mb * 0.5))
-        out += lib.einsum("xpq,po,qv->xov", v1, self.orbo, self.orbv)
+            for p0, p1 in lib.prange(0, Boo.shape[0], rows):
+                vv = lib.unpack_tril(np.asarray(Bvv[p0:p1], dtype=np.float64))
+                tmp = lib.einsum("Pab,xjb->xPja", vv, xs)
+                out -= c * lib.einsum("Pij,xPja->xia", Boo[p0:p1], tmp)
+        # XC kernel on the response grid, in the MO basis
+        out += self.kernel_xc(xs)
         # non-equilibrium PCM: 2 Vᵀ M V x
         if self.V is not None:
             vg = lib.einsum("gia,xia->xg", self.V, xs)
@@ -401,9 +452,14 @@ def fast_response(mf, settings: ExciteSettings, log=None):
     if not settings.tda:
         raise EngineError("the fast path solves TDA only; use solver='stock' for full TDDFT")
     solver = FastTDA(mf, settings, log=log)
-    e, xs = solver.kernel(settings.nstates)
+    with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+        e, xs = solver.kernel(settings.nstates)
     osc, tdip = solver.properties(e, xs)
-    pairs = [_dominant_pairs(mf, x) for x in xs]
+    full = np.zeros((len(xs), solver.nocc_all, solver.nvir_all))
+    o0 = solver.occ_index[:, None]
+    v0 = solver.vir_index[None, :] - solver.nocc_all
+    full[:, o0, v0] = xs
+    pairs = [_dominant_pairs(mf, x) for x in full]
     return e, osc, tdip, pairs, solver.pcm_eps
 
 

@@ -1,0 +1,173 @@
+"""Density fitting with compact in-core three-index tensors (float32 storage, float64 arithmetic).
+
+An SRSH ground state needs two fitted Coulomb tensors, the full-range one and the erf-attenuated
+long-range one. For a bacteriochlorophyll model (852 basis functions, 4266 auxiliary functions)
+each takes 12.4 GB in float64, so PySCF puts at least one on disk and reads it back every SCF
+cycle. Stored in float32 they take 6.2 GB each and both stay in memory. Every block is converted
+back to float64 before it is used, so only the storage is rounded (relative 6e-8, the size of
+usual integral screening thresholds); the tests measure what this does to SCF and excitation
+energies against PySCF's float64 tensors.
+
+Exchange is built from a factorisation of each density matrix, K = Σ_P (L_P U)(L_P V)ᵀ with
+D = U Vᵀ: the occupied orbitals when the SCF tags the density with them, otherwise a truncated
+SVD, so cost scales with the rank of D rather than with nao³ (Weigend, PCCP 4, 4285 (2002) for
+the occupied-orbital form of RI-K).
+"""
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+from pyscf import df, lib
+
+
+def _metric_factor(j2c):
+    """(kind, factor) with factor⁻¹-like action: the Cholesky factor or w^-1/2 Uᵀ if singular."""
+    try:
+        return "chol", scipy.linalg.cholesky(j2c, lower=True)
+    except np.linalg.LinAlgError:
+        w, u = scipy.linalg.eigh(j2c)
+        keep = w > 1e-10 * w.max()
+        return "eig", (u[:, keep] / np.sqrt(w[keep])).T
+
+
+def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400):
+    """Fitted three-index tensor L[P, μν] (μ ≥ ν packed), L = J^-1/2 (P|μν), built in AO blocks.
+
+    omega ≠ 0 gives the erf-attenuated (long-range) tensor with the attenuated metric.
+    No float64 copy of the whole tensor is ever held.
+    """
+    nao = mol.nao
+    npair = nao * (nao + 1) // 2
+    ao_loc = mol.ao_loc_nr()
+    with mol.with_range_coulomb(omega), auxmol.with_range_coulomb(omega):
+        kind, fac = _metric_factor(auxmol.intor("int2c2e", hermi=1))
+        naux = fac.shape[0]
+        out = np.empty((naux, npair), dtype=dtype)
+        limit = block_mb * 1e6 / 8 / max(auxmol.nao, 1) / 2
+        ish0 = 0
+        while ish0 < mol.nbas:
+            ish1 = ish0 + 1
+            while ish1 < mol.nbas and (ao_loc[ish1 + 1] * (ao_loc[ish1 + 1] + 1) // 2
+                                       - ao_loc[ish0] * (ao_loc[ish0] + 1) // 2) < limit:
+                ish1 += 1
+            j3c = df.incore.aux_e2(mol, auxmol, intor=mol._add_suffix("int3c2e"), aosym="s2ij",
+                                   shls_slice=(ish0, ish1, 0, ish1, 0, auxmol.nbas))
+            p0 = ao_loc[ish0] * (ao_loc[ish0] + 1) // 2
+            p1 = ao_loc[ish1] * (ao_loc[ish1] + 1) // 2
+            j3c = j3c.reshape(p1 - p0, -1)
+            if kind == "chol":
+                blk = scipy.linalg.solve_triangular(fac, j3c.T, lower=True, overwrite_b=True,
+                                                    check_finite=False)
+            else:
+                blk = fac @ j3c.T
+            out[:, p0:p1] = blk
+            ish0 = ish1
+    return out
+
+
+def _factor(dm, hermi, mo_coeff=None, mo_occ=None):
+    """(U, V) with dm = U Vᵀ, of the lowest rank we can find cheaply."""
+    if mo_coeff is not None and mo_occ is not None and hermi == 1:
+        occ = np.asarray(mo_occ)
+        sel = occ > 0
+        c = np.asarray(mo_coeff)[:, sel] * np.sqrt(occ[sel])
+        return c, c
+    u, s, vt = np.linalg.svd(dm)
+    keep = s > 1e-12 * max(s.max(), 1e-300)
+    rs = np.sqrt(s[keep])
+    return u[:, keep] * rs, vt[keep].T * rs
+
+
+class CompactDF(df.DF):
+    """PySCF density-fitting object whose tensors live in memory in float32 (or float64).
+
+    Drop-in for ``mf.with_df``: ``get_jk`` serves the full-range tensor (omega None/0) and any
+    range-separated ω with its own attenuated tensor, each built once on first use.
+    """
+
+    def __init__(self, mol, auxbasis=None, storage="float32", block_mb=400):
+        super().__init__(mol, auxbasis)
+        self.storage = np.dtype(storage)
+        self.block_mb = block_mb
+        self._tensors = {}
+
+    def reset(self, mol=None):
+        self._tensors = {}
+        return super().reset(mol)
+
+    def build(self):
+        self.check_sanity()
+        self.tensor(0.0)
+        return self
+
+    def tensor(self, omega=0.0):
+        key = round(float(omega or 0.0), 12)
+        if key not in self._tensors:
+            auxbasis = self.auxbasis or df.make_auxbasis(self.mol, mp2fit=False)
+            auxmol = df.addons.make_auxmol(self.mol, auxbasis)
+            self.auxmol = auxmol
+            self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage, self.block_mb)
+        return self._tensors[key]
+
+    def drop(self):
+        """Release the tensors (they are rebuilt on the next use)."""
+        self._tensors = {}
+
+    def blocks(self, omega=0.0, rows=None):
+        """Yield (p0, p1, float64 packed block) of the fitted tensor."""
+        t = self.tensor(omega)
+        naux, npair = t.shape
+        rows = rows or max(1, int(self.block_mb * 1e6 / 8 / (2 * npair)))
+        for p0, p1 in lib.prange(0, naux, rows):
+            yield p0, p1, np.asarray(t[p0:p1], dtype=np.float64)
+
+    def get_jk(self, dm, hermi=1, with_j=True, with_k=True, direct_scf_tol=None, omega=None):
+        if omega is not None and omega < 0:
+            raise NotImplementedError("short-range (omega < 0) fitted exchange is not provided "
+                                      "by CompactDF")
+        mo_coeff = getattr(dm, "mo_coeff", None)
+        mo_occ = getattr(dm, "mo_occ", None)
+        dms = np.asarray(dm, dtype=np.float64)
+        shape = dms.shape
+        nao = shape[-1]
+        dms = dms.reshape(-1, nao, nao)
+        nset = len(dms)
+        if mo_coeff is not None and nset > 1:
+            mo_coeff = np.asarray(mo_coeff).reshape(nset, nao, -1)
+            mo_occ = np.asarray(mo_occ).reshape(nset, -1)
+        elif mo_coeff is not None:
+            mo_coeff, mo_occ = [mo_coeff], [mo_occ]
+        else:
+            mo_coeff = mo_occ = [None] * nset
+        vj = np.zeros_like(dms) if with_j else None
+        vk = np.zeros_like(dms) if with_k else None
+        if with_j:
+            sym = (dms + dms.transpose(0, 2, 1)) * 0.5
+            dtril = lib.pack_tril(sym + sym.transpose(0, 2, 1))
+            idx = np.arange(nao)
+            dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
+            jtril = np.zeros((nset, nao * (nao + 1) // 2))
+        factors = ([_factor(dms[k], hermi, mo_coeff[k], mo_occ[k]) for k in range(nset)]
+                   if with_k else [])
+        rank = max((u.shape[1] for u, _ in factors), default=1)
+        rows = max(1, int(self.block_mb * 1e6 / 8 / (nao * nao + 2 * nao * rank)))
+        for p0, p1, blk in self.blocks(omega or 0.0, rows):
+            if with_j:
+                rho = dtril @ blk.T
+                jtril += rho @ blk
+            if with_k:
+                full = lib.unpack_tril(blk)                   # (b, nao, nao)
+                flat = full.reshape(-1, nao)
+                nb = p1 - p0
+                for k, (u, v) in enumerate(factors):
+                    x = (flat @ u).reshape(nb, nao, -1).transpose(1, 0, 2).reshape(nao, -1)
+                    if v is u:
+                        vk[k] += x @ x.T
+                    else:
+                        y = (flat @ v).reshape(nb, nao, -1).transpose(1, 0, 2).reshape(nao, -1)
+                        vk[k] += x @ y.T
+        if with_j:
+            vj = lib.unpack_tril(jtril, 1).reshape(shape)
+        if with_k:
+            vk = vk.reshape(shape)
+        return vj, vk
