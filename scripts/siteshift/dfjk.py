@@ -17,7 +17,8 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.linalg
-from pyscf import df, lib
+from pyscf import df, gto, lib
+from pyscf.solvent import pcm
 
 
 def _metric_factor(j2c):
@@ -30,7 +31,7 @@ def _metric_factor(j2c):
         return "eig", (u[:, keep] / np.sqrt(w[keep])).T
 
 
-def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400):
+def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400, metric_out=None):
     """Fitted three-index tensor L[P, μν] (μ ≥ ν packed), L = J^-1/2 (P|μν), built in AO blocks.
 
     omega ≠ 0 gives the erf-attenuated (long-range) tensor with the attenuated metric.
@@ -41,6 +42,8 @@ def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400):
     ao_loc = mol.ao_loc_nr()
     with mol.with_range_coulomb(omega), auxmol.with_range_coulomb(omega):
         kind, fac = _metric_factor(auxmol.intor("int2c2e", hermi=1))
+        if metric_out is not None:
+            metric_out[:] = [kind, fac]
         naux = fac.shape[0]
         out = np.empty((naux, npair), dtype=dtype)
         limit = block_mb * 1e6 / 8 / max(auxmol.nao, 1) / 2
@@ -90,9 +93,11 @@ class CompactDF(df.DF):
         self.storage = np.dtype(storage)
         self.block_mb = block_mb
         self._tensors = {}
+        self._metrics = {}
 
     def reset(self, mol=None):
         self._tensors = {}
+        self._metrics = {}
         return super().reset(mol)
 
     def build(self):
@@ -106,8 +111,41 @@ class CompactDF(df.DF):
             auxbasis = self.auxbasis or df.make_auxbasis(self.mol, mp2fit=False)
             auxmol = df.addons.make_auxmol(self.mol, auxbasis)
             self.auxmol = auxmol
-            self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage, self.block_mb)
+            metric = [None, None]
+            self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage, self.block_mb,
+                                             metric_out=metric)
+            self._metrics[key] = tuple(metric)
         return self._tensors[key]
+
+    def apply_metric(self, x):
+        """J^-1/2 applied to the rows of x (naux, n): x in the fitted tensor's auxiliary space."""
+        self.tensor(0.0)
+        kind, fac = self._metrics[0.0]
+        if kind == "chol":
+            return scipy.linalg.solve_triangular(fac, x, lower=True)
+        return fac @ x
+
+    def fit_density(self, dms):
+        """ρ_P = Σ_μν L_P,μν D_μν for each density (nset, naux); the D are symmetrised."""
+        dms = np.asarray(dms, dtype=np.float64)
+        nao = dms.shape[-1]
+        dms = dms.reshape(-1, nao, nao)
+        sym = dms + dms.transpose(0, 2, 1)
+        dtril = lib.pack_tril(sym)
+        idx = np.arange(nao)
+        dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
+        out = np.empty((len(dms), self.tensor(0.0).shape[0]))
+        for p0, p1, blk in self.blocks(0.0):
+            out[:, p0:p1] = dtril @ blk.T
+        return out
+
+    def contract_aux(self, c):
+        """Σ_P c_P L_P,μν for each row of c (nset, naux) → (nset, nao, nao)."""
+        c = np.atleast_2d(c)
+        acc = np.zeros((len(c), self.tensor(0.0).shape[1]))
+        for p0, p1, blk in self.blocks(0.0):
+            acc += c[:, p0:p1] @ blk
+        return lib.unpack_tril(acc, 1)
 
     def drop(self):
         """Release the tensors (they are rebuilt on the next use)."""
@@ -142,8 +180,8 @@ class CompactDF(df.DF):
         vj = np.zeros_like(dms) if with_j else None
         vk = np.zeros_like(dms) if with_k else None
         if with_j:
-            sym = (dms + dms.transpose(0, 2, 1)) * 0.5
-            dtril = lib.pack_tril(sym + sym.transpose(0, 2, 1))
+            sym = dms + dms.transpose(0, 2, 1)
+            dtril = lib.pack_tril(sym)
             idx = np.arange(nao)
             dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
             jtril = np.zeros((nset, nao * (nao + 1) // 2))
@@ -153,8 +191,7 @@ class CompactDF(df.DF):
         rows = max(1, int(self.block_mb * 1e6 / 8 / (nao * nao + 2 * nao * rank)))
         for p0, p1, blk in self.blocks(omega or 0.0, rows):
             if with_j:
-                rho = dtril @ blk.T
-                jtril += rho @ blk
+                jtril += (dtril @ blk.T) @ blk
             if with_k:
                 full = lib.unpack_tril(blk)                   # (b, nao, nao)
                 flat = full.reshape(-1, nao)
@@ -171,3 +208,33 @@ class CompactDF(df.DF):
         if with_k:
             vk = vk.reshape(shape)
         return vj, vk
+
+
+class FittedPCM(pcm.PCM):
+    """PCM whose surface potential and reaction-field matrix use the fitted density.
+
+    PySCF evaluates (μν|g) for every surface point g twice per SCF cycle. With the density fitted
+    as for the Coulomb matrix, v_g = Σ_P ρ_P W_Pg and V_μν = −Σ_P L_P,μν (W q)_P, with
+    W = J^-1/2 (P|g) computed once: the same fitting that J already uses, so the cost per cycle is
+    that of a J build. ``fit_df`` is the ground state's :class:`CompactDF`.
+    """
+
+    fit_df = None
+
+    def _fit_weights(self):
+        coords = self.surface["grid_coords"]
+        key = (coords.shape, float(np.sum(coords)), id(self.fit_df))
+        if getattr(self, "_w_key", None) != key:
+            self.fit_df.tensor(0.0)
+            fake = gto.fakemol_for_charges(coords, expnt=self.surface["charge_exp"] ** 2)
+            qg = gto.mole.intor_cross("int2c2e", self.fit_df.auxmol, fake)
+            self._w = self.fit_df.apply_metric(qg)
+            self._w_key = key
+        return self._w
+
+    def _get_v(self, dms):
+        return self.fit_df.fit_density(dms) @ self._fit_weights()
+
+    def _get_vmat(self, q):
+        w = self._fit_weights()
+        return -self.fit_df.contract_aux(np.reshape(q, (-1, w.shape[1])) @ w.T)

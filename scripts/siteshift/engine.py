@@ -28,7 +28,7 @@ from pyscf import df, dft, gto, lib
 from pyscf.data import nist
 
 from .bands import assign_bands
-from .dfjk import CompactDF
+from .dfjk import CompactDF, FittedPCM
 from .functional import SRSH
 from .xcgrid import DenseNumInt, MOKernel
 
@@ -82,6 +82,7 @@ class ExciteSettings:
     response_grid_level: int | None = None   # XC-kernel grid of the fast TDA (None: SCF grid)
     occ_window_ev: float | None = None   # fast TDA: occupied orbitals within this of the HOMO
     vir_window_ev: float | None = None   # fast TDA: virtual orbitals within this of the LUMO
+    pcm_fit: bool = True                 # PCM potentials from the fitted density (in-core DF only)
 
     def check(self) -> None:
         if self.eps_static < 1.0 or self.eps_optical < 1.0:
@@ -170,6 +171,9 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
                                    block_mb=min(1000, max(100, settings.max_memory_mb // 8)))
     if settings.solvated if solvated is None else solvated:
         mf = _attach_pcm(mf, settings, settings.eps_static)
+        if settings.pcm_fit and isinstance(getattr(mf, "with_df", None), CompactDF):
+            mf.with_solvent.__class__ = FittedPCM
+            mf.with_solvent.fit_df = mf.with_df
     return mf
 
 
@@ -311,7 +315,7 @@ class FastTDA:
                                   max_memory_mb=max(500, settings.max_memory_mb // 8))
         t2 = time.perf_counter()
         self.pcm_eps = None
-        self.V = None
+        self.V = self.W = None
         if hasattr(mf, "with_solvent"):
             self._build_pcm(mf, settings)
         t3 = time.perf_counter()
@@ -373,6 +377,10 @@ class FastTDA:
         R = sol._intermediates["R"]
         KinvR = np.linalg.solve(K, R)
         self.M = 0.5 * (KinvR + KinvR.T)
+        if isinstance(sol, FittedPCM):
+            # V_g,ia = Σ_P W_Pg B^P_ia: folded into the Coulomb term, nothing stored per point
+            self.W = sol._fit_weights()
+            return
         surf = sol.surface
         mol = mf.mol
         coords, expn = surf["grid_coords"], surf["charge_exp"]
@@ -393,7 +401,10 @@ class FastTDA:
         out = xs * self.e_ia
         # Coulomb: 2 (ia|jb) x_jb
         t = lib.einsum("Pjb,xjb->xP", self.Bov, xs)
-        out += 2.0 * lib.einsum("Pia,xP->xia", self.Bov, t)
+        coef = 2.0 * t
+        if self.W is not None:  # fitted PCM: 2 Vᵀ M V x with V = Wᵀ B
+            coef += 2.0 * (((t @ self.W) @ self.M.T) @ self.W.T)
+        out += lib.einsum("Pia,xP->xia", self.Bov, coef)
         # exact exchange: c (ij|ab) x_jb = Σ_P Σ_j B_ij (Σ_b B_ab x_jb), B_ab unpacked by blocks
         nv = self.nvir
         rows = max(1, int(2e8 // (nv * nv + len(xs) * self.nocc * nv)))
