@@ -34,8 +34,9 @@ def _metric_factor(j2c):
 def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400, metric_out=None):
     """Fitted three-index tensor L[P, μν] (μ ≥ ν packed), L = J^-1/2 (P|μν), built in AO blocks.
 
-    omega ≠ 0 gives the erf-attenuated (long-range) tensor with the attenuated metric.
-    No float64 copy of the whole tensor is ever held.
+    Returned as a list of row chunks (each a few hundred MB) so that a consumer can release the
+    tensor chunk by chunk. omega ≠ 0 gives the erf-attenuated (long-range) tensor with the
+    attenuated metric. No float64 copy of the whole tensor is ever held.
     """
     nao = mol.nao
     npair = nao * (nao + 1) // 2
@@ -45,7 +46,9 @@ def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400, metric_o
         if metric_out is not None:
             metric_out[:] = [kind, fac]
         naux = fac.shape[0]
-        out = np.empty((naux, npair), dtype=dtype)
+        rows = max(1, int(block_mb * 1e6 / np.dtype(dtype).itemsize / npair))
+        bounds = list(lib.prange(0, naux, rows))
+        out = [np.empty((r1 - r0, npair), dtype=dtype) for r0, r1 in bounds]
         limit = block_mb * 1e6 / 8 / max(auxmol.nao, 1) / 2
         ish0 = 0
         while ish0 < mol.nbas:
@@ -63,7 +66,8 @@ def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400, metric_o
                                                     check_finite=False)
             else:
                 blk = fac @ j3c.T
-            out[:, p0:p1] = blk
+            for (r0, r1), chunk in zip(bounds, out):
+                chunk[:, p0:p1] = blk[r0:r1]
             ish0 = ish1
     return out
 
@@ -119,7 +123,8 @@ class CompactDF(df.DF):
 
     def apply_metric(self, x):
         """J^-1/2 applied to the rows of x (naux, n): x in the fitted tensor's auxiliary space."""
-        self.tensor(0.0)
+        if 0.0 not in self._metrics:
+            self.tensor(0.0)
         kind, fac = self._metrics[0.0]
         if kind == "chol":
             return scipy.linalg.solve_triangular(fac, x, lower=True)
@@ -134,7 +139,7 @@ class CompactDF(df.DF):
         dtril = lib.pack_tril(sym)
         idx = np.arange(nao)
         dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
-        out = np.empty((len(dms), self.tensor(0.0).shape[0]))
+        out = np.empty((len(dms), self.naux()))
         for p0, p1, blk in self.blocks(0.0):
             out[:, p0:p1] = dtril @ blk.T
         return out
@@ -142,22 +147,43 @@ class CompactDF(df.DF):
     def contract_aux(self, c):
         """Σ_P c_P L_P,μν for each row of c (nset, naux) → (nset, nao, nao)."""
         c = np.atleast_2d(c)
-        acc = np.zeros((len(c), self.tensor(0.0).shape[1]))
+        acc = np.zeros((len(c), self.mol.nao * (self.mol.nao + 1) // 2))
         for p0, p1, blk in self.blocks(0.0):
             acc += c[:, p0:p1] @ blk
         return lib.unpack_tril(acc, 1)
 
-    def drop(self):
-        """Release the tensors (they are rebuilt on the next use)."""
-        self._tensors = {}
+    def drop(self, omega=None):
+        """Release one tensor (or all); it is rebuilt on its next use. Metrics are kept."""
+        if omega is None:
+            self._tensors = {}
+        else:
+            self._tensors.pop(round(float(omega), 12), None)
 
-    def blocks(self, omega=0.0, rows=None):
-        """Yield (p0, p1, float64 packed block) of the fitted tensor."""
-        t = self.tensor(omega)
-        naux, npair = t.shape
-        rows = rows or max(1, int(self.block_mb * 1e6 / 8 / (2 * npair)))
-        for p0, p1 in lib.prange(0, naux, rows):
-            yield p0, p1, np.asarray(t[p0:p1], dtype=np.float64)
+    def naux(self, omega=0.0):
+        return sum(len(c) for c in self.tensor(omega))
+
+    def blocks(self, omega=0.0, rows=None, consume=False):
+        """Yield (p0, p1, float64 packed block) of the fitted tensor, chunk by chunk.
+
+        consume: release each stored chunk once yielded (the tensor is gone afterwards).
+        """
+        chunks = self.tensor(omega)
+        key = round(float(omega or 0.0), 12)
+        npair = self.mol.nao * (self.mol.nao + 1) // 2
+        rows = rows or max(1, int(self.block_mb * 1e6 / 8 / npair))
+        p0 = 0
+        while chunks:
+            c = chunks[0]
+            for s0 in range(0, len(c), rows):
+                s1 = min(len(c), s0 + rows)
+                yield p0 + s0, p0 + s1, np.asarray(c[s0:s1], dtype=np.float64)
+            p0 += len(c)
+            if consume:
+                chunks.pop(0)
+                if not chunks:
+                    self._tensors.pop(key, None)
+            else:
+                chunks = chunks[1:]
 
     def get_jk(self, dm, hermi=1, with_j=True, with_k=True, direct_scf_tol=None, omega=None):
         if omega is not None and omega < 0:
@@ -225,7 +251,8 @@ class FittedPCM(pcm.PCM):
         coords = self.surface["grid_coords"]
         key = (coords.shape, float(np.sum(coords)), id(self.fit_df))
         if getattr(self, "_w_key", None) != key:
-            self.fit_df.tensor(0.0)
+            if 0.0 not in self.fit_df._metrics:
+                self.fit_df.tensor(0.0)
             fake = gto.fakemol_for_charges(coords, expnt=self.surface["charge_exp"] ** 2)
             qg = gto.mole.intor_cross("int2c2e", self.fit_df.auxmol, fake)
             self._w = self.fit_df.apply_metric(qg)

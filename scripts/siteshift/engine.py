@@ -82,7 +82,7 @@ class ExciteSettings:
     response_grid_level: int | None = None   # XC-kernel grid of the fast TDA (None: SCF grid)
     occ_window_ev: float | None = None   # fast TDA: occupied orbitals within this of the HOMO
     vir_window_ev: float | None = None   # fast TDA: virtual orbitals within this of the LUMO
-    pcm_fit: bool = True                 # PCM potentials from the fitted density (in-core DF only)
+    pcm_fit: bool = False                # PCM potentials from the fitted density (in-core DF only)
 
     def check(self) -> None:
         if self.eps_static < 1.0 or self.eps_optical < 1.0:
@@ -329,8 +329,9 @@ class FastTDA:
     def _ao_blocks(self, mol, omega):
         """Packed float64 blocks of the fitted AO tensor (the ground state's when it has one)."""
         with_df = getattr(self.mf, "with_df", None)
-        if isinstance(with_df, CompactDF):
-            yield from with_df.blocks(omega or 0.0)
+        if isinstance(with_df, CompactDF):  # released chunk by chunk: the response keeps MO blocks
+            yield from with_df.blocks(omega or 0.0, rows=max(1, int(3e8 / 8 / mol.nao ** 2)),
+                                      consume=True)
             return
         aux = self.settings.auxbasis
         if with_df is not None and getattr(with_df, "auxbasis", None):
@@ -366,9 +367,6 @@ class FastTDA:
                 _, self.Loo, self.Lvv = self._mo_tensors(mol, omega=self.omega, with_ov=False)
             else:
                 self.Loo = self.Lvv = None
-        with_df = getattr(self.mf, "with_df", None)
-        if isinstance(with_df, CompactDF):
-            with_df.drop()  # the response no longer needs the AO tensors
 
     def _build_pcm(self, mf, settings):
         sol = _response_solvent(mf, settings)

@@ -29,7 +29,10 @@ def qm_settings(qm: dict, eps_static=1.0, eps_optical=1.0, omega=None, nstates=N
         grid_level=int(pick("grid_level")), pcm_method=qm.get("pcm_method", "IEF-PCM"),
         lebedev_order=int(pick("lebedev_order")), nstates=int(n), tda=bool(qm.get("tda", True)),
         equilibrium=bool(qm.get("equilibrium", False)), solver=qm.get("solver", "fast"),
-        max_memory_mb=int(qm.get("max_memory_mb", 4000)))
+        max_memory_mb=int(qm.get("max_memory_mb", 4000)),
+        df_storage=qm.get("df_storage", "float32"), pcm_fit=bool(qm.get("pcm_fit", False)),
+        response_grid_level=pick("response_grid_level"),
+        occ_window_ev=pick("occ_window_ev"), vir_window_ev=pick("vir_window_ev"))
 
 
 def tune_xatol(qm: dict) -> float:

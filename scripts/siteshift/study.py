@@ -318,21 +318,35 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
     return sites, br, vs
 
 
+def sweep_guess(dms, xs, eps, extrapolate=True):
+    """(kind, density) to start the SCF at ε from earlier points' densities dms at xs = 1/ε."""
+    if extrapolate and len(dms) >= 2:
+        f = (1.0 / eps - xs[-1]) / (xs[-1] - xs[-2])
+        return "extrapolated", dms[-1] + f * (dms[-1] - dms[-2])
+    if dms:
+        return "previous", dms[-1]
+    return "default", None
+
+
 def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
                 variant=None, measure_cold_start=False):
     """Excited states of one pigment over a grid of ε_static (uniform: SRSH screening and PCM
     together; ε_optical = min(n², ε_static)). Each point's SCF starts from the previous point's
-    density (warm start). measure_cold_start: also converge the second point from the default
-    guess (one extra SCF) and record its cycles, to show what the warm start saves."""
+    density (warm start); from the third point on, from the linear extrapolation of the last two
+    densities in 1/ε, the variable in which both the SRSH long-range fraction (1/ε) and the PCM
+    screening factor (1 − 1/ε) are linear. measure_cold_start: also converge the second point
+    from the default guess (one extra SCF) and record its cycles, to show what the warm start
+    saves."""
     from .engine import build_molecule, make_scf, run_scf
     from .settings import qm_settings
     rec = io.read_json(model_json)
     omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
-    points, dm = [], None
+    points, dms, xs = [], [], []
     t0 = time.perf_counter()
     for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
         s = qm_settings(qm, eps, min(n2, eps), omega, rec.get("nstates_default"))
         t = time.perf_counter()
+        guess, dm = sweep_guess(dms, xs, eps)
         res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
                      keep_density=True)
@@ -341,10 +355,12 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
             mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                                  rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
             cold = run_scf(make_scf(mol, s))[2]
-        dm = res.pop("_dm", None)
+        dms.append(np.asarray(res.pop("_dm")))
+        xs.append(1.0 / eps)
         points.append({"eps_static": eps, "eps_optical": min(n2, eps),
                        "scf_cycles": res["scf_cycles"], "scf_cycles_cold": cold,
-                       "warm_start": k > 0, "time_s": round(time.perf_counter() - t, 2),
+                       "warm_start": k > 0, "scf_guess": guess,
+                       "time_s": round(time.perf_counter() - t, 2),
                        "states": res["states"]})
         log.info("%s eps=%.2f: %s (SCF %d cycles%s)", rec["pigment_id"], eps,
                  ", ".join(f"{st['energy_ev']:.4f}" for st in res["states"]),

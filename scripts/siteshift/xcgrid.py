@@ -154,17 +154,20 @@ class MOKernel:
         self.cache_mb = need_mb
         self._cache = list(self._orbital_blocks()) if self.cached else None
 
-    def _orbital_blocks(self):
+    def _orbital_blocks(self, sub=4096):
+        """(p0, p1, φ_o, φ_v) on contiguous sub-blocks of at most ``sub`` grid points."""
         nao = self.mol.nao
         p0 = 0
         for ao, _mask, weight, _coords in self.ni.block_loop(self.mol, self.grids, nao, 1,
                                                              max_memory=self.max_memory_mb):
             flush_tiny(ao)
-            p1 = p0 + weight.size
             phio = flush_tiny(np.stack([ao[k] @ self.orbo for k in range(4)]))
             phiv = flush_tiny(np.stack([ao[k] @ self.orbv for k in range(4)]))
-            yield p0, p1, phio, phiv
-            p0 = p1
+            for q0 in range(0, weight.size, sub):
+                q1 = min(weight.size, q0 + sub)
+                yield (p0 + q0, p0 + q1, np.ascontiguousarray(phio[:, q0:q1]),
+                       np.ascontiguousarray(phiv[:, q0:q1]))
+            p0 += weight.size
 
     def __call__(self, xs):
         with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
@@ -172,25 +175,24 @@ class MOKernel:
 
     def _apply(self, xs):
         nx, no, nv = xs.shape
-        out = np.zeros_like(xs)
+        out = np.zeros((nx * no, nv))
         blocks = self._cache if self.cached else self._orbital_blocks()
         xt = (2.0 * xs).transpose(2, 0, 1).reshape(nv, nx * no)      # (v, x·o)
         for p0, p1, phio, phiv in blocks:
             ng = p1 - p0
-            t = (phiv.reshape(4 * ng, nv) @ xt).reshape(4, ng, nx, no)  # Σ_a X_ia ∇^k φ_a
-            rho1 = np.empty((nx, 4, ng))
-            rho1[:, 0] = np.einsum("gxi,gi->xg", t[0], phio[0])
+            # t^k_g,xi = Σ_a X_ia ∇^k φ_a(g)
+            t = (phiv.reshape(4 * ng, nv) @ xt).reshape(4, ng, nx, no)
+            rho1 = np.empty((4, ng, nx))
+            rho1[0] = np.einsum("gxi,gi->gx", t[0], phio[0])
             for k in range(1, 4):
-                rho1[:, k] = (np.einsum("gxi,gi->xg", t[0], phio[k])
-                              + np.einsum("gxi,gi->xg", t[k], phio[0]))
-            u = flush_tiny(np.einsum("xkg,klg->xlg", rho1, self.wfxc[:, :, p0:p1]))
-            for x in range(nx):
-                # V_ia = Σ_g (u0 φ_i + u_k ∇_kφ_i) φ_a + φ_i (u_k ∇_kφ_a)
-                a = phio[0] * u[x, 0][:, None]
-                b = phiv[1] * u[x, 1][:, None]
-                for k in range(1, 4):
-                    a += phio[k] * u[x, k][:, None]
-                    if k > 1:
-                        b += phiv[k] * u[x, k][:, None]
-                out[x] += flush_tiny(a).T @ phiv[0] + phio[0].T @ flush_tiny(b)
-        return out
+                rho1[k] = (np.einsum("gxi,gi->gx", t[0], phio[k])
+                           + np.einsum("gxi,gi->gx", t[k], phio[0]))
+            u = flush_tiny(np.einsum("kgx,klg->lgx", rho1, self.wfxc[:, :, p0:p1]))
+            # V_ia = Σ_g (u0 φ_i + u_k ∇_kφ_i) φ_a + Σ_k (u_k φ_i) ∇_kφ_a: one matrix product
+            g = np.empty((4, ng, nx, no))
+            g[0] = u[0][:, :, None] * phio[0][:, None, :]
+            for k in range(1, 4):
+                g[0] += u[k][:, :, None] * phio[k][:, None, :]
+                g[k] = u[k][:, :, None] * phio[0][:, None, :]
+            out += flush_tiny(g).reshape(4 * ng, nx * no).T @ phiv.reshape(4 * ng, nv)
+        return out.reshape(nx, no, nv)

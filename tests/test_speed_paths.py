@@ -1,0 +1,141 @@
+"""The fast building blocks against PySCF's own reference implementations on small molecules.
+
+Each fast piece (in-core fitted tensors, dense XC integration, MO-basis kernel, fitted PCM
+potential, orbital windows) must give PySCF's numbers: exactly (to round-off) where the arithmetic
+is the same, and within the stated tolerance where a documented approximation is made.
+"""
+import numpy as np
+import pytest
+from pyscf import df, dft, gto, lib, scf
+
+from siteshift.dfjk import CompactDF, FittedPCM
+from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule, fast_response,
+                              make_scf, run_scf)
+from siteshift.functional import SRSH
+from siteshift.xcgrid import DenseNumInt, MOKernel, flush_tiny
+
+# methanol-like 6-atom molecule plus formaldehyde geometry (Å; common practice values, from memory)
+MEOH = "C 0 0 0; O 1.43 0 0; H 1.75 0.9 0; H -0.36 1.03 0; H -0.36 -0.51 0.89; H -0.36 -0.51 -0.89"
+CH2O = (["C", "O", "H", "H"], [[0.0, 0.0, -0.529], [0.0, 0.0, 0.679],
+                               [0.0, 0.937, -1.118], [0.0, -0.937, -1.118]])
+
+
+@pytest.fixture(scope="module")
+def meoh():
+    return gto.M(atom=MEOH, basis="def2-svp", verbose=0)
+
+
+@pytest.mark.parametrize("storage,tol", [("float64", 1e-10), ("float32", 1e-5)])
+@pytest.mark.parametrize("omega", [None, 0.3])
+def test_compact_df_equals_pyscf_df(meoh, storage, tol, omega):
+    # Reference: PySCF's df.DF.get_jk (float64 tensors) on tagged, symmetric, non-symmetric and
+    # stacked densities. float32 storage: relative error of the stored integrals ~6e-8.
+    ref = df.DF(meoh).build()
+    mine = CompactDF(meoh, storage=storage)
+    rng = np.random.default_rng(1)
+    mf = scf.RHF(meoh).run()
+    d = rng.standard_normal((meoh.nao, meoh.nao)) * 0.1
+    for dm, hermi in ((mf.make_rdm1(), 1), (d + d.T, 1), (d, 0), (np.array([d, d + d.T]), 0)):
+        j0, k0 = ref.get_jk(dm, hermi=hermi, omega=omega)
+        j1, k1 = mine.get_jk(dm, hermi=hermi, omega=omega)
+        # the long-range metric is conditioned differently in PySCF (2e-8 measured)
+        t = max(tol, 1e-7) if omega else tol
+        assert np.max(np.abs(j1 - j0)) <= t * max(1.0, np.max(np.abs(j0)))
+        assert np.max(np.abs(k1 - k0)) <= t * max(1.0, np.max(np.abs(k0)))
+
+
+def test_dense_xc_equals_pyscf_numint(meoh):
+    # Reference: PySCF's NumInt.nr_rks for the SRSH GGA part, tagged and untagged densities.
+    grids = dft.gen_grid.Grids(meoh)
+    grids.level = 2
+    grids.build()
+    mf = dft.RKS(meoh, xc="PBE").run()
+    xc = SRSH(0.2, 0.25, 4.0).xc
+    for dm in (mf.make_rdm1(), np.asarray(mf.make_rdm1()) * 0.9):
+        n0, e0, v0 = dft.numint.NumInt().nr_rks(meoh, grids, xc, dm)
+        n1, e1, v1 = DenseNumInt().nr_rks(meoh, grids, xc, dm)
+        assert abs(n1 - n0) < 1e-10 and abs(e1 - e0) < 1e-10
+        assert np.max(np.abs(v1 - v0)) < 1e-10
+
+
+def test_flush_tiny_zeroes_only_tiny_values():
+    a = np.asfortranarray(np.array([[1e-49, 1e-51], [-1e-60, 5e-324], [-2.0, 0.0]]))
+    flush_tiny(a)
+    assert a.tolist() == [[1e-49, 0.0], [0.0, 0.0], [-2.0, 0.0]]
+
+
+def test_mo_kernel_equals_pyscf_fxc(meoh):
+    # Reference: PySCF's nr_rks_fxc (spin-0 kernel) on the transition density 2·C_o x C_vᵀ,
+    # projected on the occupied-virtual block.
+    mf = dft.RKS(meoh, xc=SRSH(0.2, 0.25, 4.0).xc)
+    mf.grids.level = 1
+    mf.run()
+    occ = mf.mo_occ > 0
+    o, v = mf.mo_coeff[:, occ], mf.mo_coeff[:, ~occ]
+    kern = MOKernel(mf, mf.grids, o, v)
+    xs = np.random.default_rng(2).standard_normal((3, o.shape[1], v.shape[1]))
+    rho0, vxc, fxc = mf._numint.cache_xc_kernel(meoh, mf.grids, mf.xc, mf.mo_coeff, mf.mo_occ, 0)
+    dms = lib.einsum("xov,qv,po->xpq", 2 * xs, v, o)
+    ref = mf._numint.nr_rks_fxc(meoh, mf.grids, mf.xc, None, dms, 0, 0, rho0, vxc, fxc)
+    ref = lib.einsum("xpq,po,qv->xov", ref, o, v)
+    assert np.max(np.abs(kern(xs) - ref)) < 1e-10
+
+
+def _ch2o(basis="6-31g", **kw):
+    s = ExciteSettings(alpha=0.2, omega=0.3, eps_static=4.0, eps_optical=2.0, basis=basis,
+                       grid_level=1, lebedev_order=11, nstates=3, response_tol=1e-7, **kw)
+    mf, _, _ = run_scf(make_scf(build_molecule(*CH2O, basis=s.basis), s))
+    return mf, s
+
+
+@pytest.fixture(scope="module")
+def ch2o_exact():
+    return _ch2o(df_storage="float64", pcm_fit=False)
+
+
+def test_fitted_pcm_close_to_exact():
+    # Reference: PySCF's PCM (exact (μν|g) integrals). The fitted surface potential uses the
+    # Coulomb-metric density fit of the J matrix (def2-universal-jkfit for def2-SVP). Measured:
+    # HC4/def2-SVP ΔE_SCF 6e-5 Eh, excitations ≤ 0.24 meV; formaldehyde/def2-SVP 1.06 meV on the
+    # strongly solvatochromic n→π*. Held here to ΔE_SCF < 1e-4 Eh and 1.5 meV, which is why the
+    # fitted potential is an opt-in lever (qm.pcm_fit) and exact integrals are the default.
+    mf0, s0 = _ch2o("def2-svp", df_storage="float64", pcm_fit=False)
+    mf1, s1 = _ch2o("def2-svp", df_storage="float64", pcm_fit=True)
+    assert isinstance(mf1.with_solvent, FittedPCM)
+    assert not isinstance(mf0.with_solvent, FittedPCM)
+    assert abs(mf1.e_tot - mf0.e_tot) < 1e-4
+    e0 = fast_response(mf0, s0)[0]
+    e1 = fast_response(mf1, s1)[0]
+    assert np.max(np.abs(e1 - e0)) * HARTREE2EV < 1.5e-3
+
+
+def test_fitted_pcm_response_matches_its_own_dense_matrix():
+    # With the fitted PCM the fast operator is still a symmetric matrix whose lowest eigenvalues
+    # the Davidson solver finds (dense diagonalisation as reference).
+    mf, s = _ch2o(pcm_fit=True)
+    solver = FastTDA(mf, s)
+    assert solver.W is not None and solver.V is None
+    a = solver.matvec(np.eye(solver.nocc * solver.nvir)).T
+    assert np.allclose(a, a.T, atol=1e-10)
+    e, _x = solver.kernel(3)
+    assert np.max(np.abs(e - np.linalg.eigvalsh(a)[:3])) * HARTREE2EV < 1e-6
+
+
+def test_orbital_windows(ch2o_exact):
+    # Frozen core (C 1s, O 1s lie > 250 eV below the HOMO) changes valence excitations by far
+    # less than 1 meV (common practice); a virtual window shrinks the space it says it does.
+    mf, s = ch2o_exact
+    full = fast_response(mf, s)
+    s_core = ExciteSettings(**{**s.__dict__, "occ_window_ev": 30.0})
+    solver = FastTDA(mf, s_core)
+    assert solver.nocc == solver.nocc_all - 2
+    core = fast_response(mf, s_core)
+    assert np.max(np.abs(core[0] - full[0])) * HARTREE2EV < 1e-3
+    assert np.max(np.abs(core[1] - full[1])) < 1e-3
+    # dominant pairs are labelled in the full orbital numbering
+    assert [p["from"] for p in core[3][0]] == [p["from"] for p in full[3][0]]
+    s_vir = ExciteSettings(**{**s.__dict__, "vir_window_ev": 20.0})
+    nv = FastTDA(mf, s_vir).nvir
+    e = np.asarray(mf.mo_energy)
+    lumo = e[mf.mo_occ == 0].min()
+    assert nv == int(np.sum((e[mf.mo_occ == 0] - lumo) * HARTREE2EV <= 20.0)) < solver.nvir_all
