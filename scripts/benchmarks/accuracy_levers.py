@@ -1,0 +1,103 @@
+#!/usr/bin/env python
+"""Benchmark: what each speed lever of the fast path costs in accuracy, on one chromophore.
+
+Reference: SCF and fast TDA with PySCF's float64 fitted tensors, the SCF grid for the kernel and
+all orbitals. Each lever is then switched on alone (and all together) and the script prints and
+appends to a TSV: SCF energy change, largest |ΔE| (meV) and |Δf| over the states, SCF and
+response wall time.
+
+    python scripts/benchmarks/accuracy_levers.py [--system hc4] [--basis def2-svp] [--grid-level 3]
+
+Levers: in-core tensors in float64/float32 and the fitted PCM potential (SCF and response),
+response_grid_level 0/1/2 (response only), occ/vir windows (response only).
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT / "scripts"))
+sys.path.insert(0, str(ROOT / "scripts" / "benchmarks"))
+
+
+def main():
+    import numpy as np
+    import pandas as pd
+    from response_speed import system
+    from siteshift.engine import (HARTREE2EV, ExciteSettings, build_molecule, configure_threads,
+                                  fast_response, make_scf, run_scf)
+    ap = argparse.ArgumentParser(description=__doc__,
+                                 formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--system", default="hc4")
+    ap.add_argument("--basis", default="def2-svp")
+    ap.add_argument("--grid-level", type=int, default=3)
+    ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--nstates", type=int, default=4)
+    ap.add_argument("--tsv", default="benchmarks/accuracy_levers.tsv")
+    args = ap.parse_args()
+    configure_threads(args.threads)
+    el, xyz = system(args.system)
+    base = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,
+                          eps_optical=2.0, omega=0.2, nstates=args.nstates, lebedev_order=17,
+                          max_memory_mb=8000, df_storage="pyscf", pcm_fit=False)
+    mol = build_molecule(el, xyz, 0, 0, base.basis, base.max_memory_mb)
+    scf_cache = {}
+
+    def ground(s):
+        key = (s.df_storage, s.pcm_fit, s.grid_level)
+        if key not in scf_cache:
+            t = time.perf_counter()
+            mf, _, cycles = run_scf(make_scf(mol, s))
+            scf_cache[key] = (mf, time.perf_counter() - t, cycles)
+        return scf_cache[key]
+
+    cases = [("reference (pyscf float64 tensors, exact PCM, SCF grid, all orbitals)", {}),
+             ("float64 in-core tensors (CompactDF), exact PCM",
+              {"df_storage": "float64", "pcm_fit": False}),
+             ("float32 tensors + fitted PCM", {"df_storage": "float32", "pcm_fit": True}),
+             ("response grid 1", {"response_grid_level": 1}),
+             ("response grid 0", {"response_grid_level": 0}),
+             ("frozen core (occ window 30 eV)", {"occ_window_ev": 30.0}),
+             ("vir window 40 eV", {"vir_window_ev": 40.0}),
+             ("vir window 25 eV", {"vir_window_ev": 25.0}),
+             ("SCF and response grid 1", {"grid_level": 1}),
+             ("grid 1 + float32 + fitted PCM + occ 30 + vir 40 eV",
+              {"grid_level": 1, "df_storage": "float32", "pcm_fit": True, "occ_window_ev": 30.0,
+               "vir_window_ev": 40.0})]
+    rows, ref = [], None
+    for label, change in cases:
+        s = replace(base, **change)
+        mf, t_scf, cycles = ground(s)
+        t = time.perf_counter()
+        e, f, *_ = fast_response(mf, s)
+        t_resp = time.perf_counter() - t
+        order = np.argsort(e)
+        e, f = np.asarray(e)[order] * HARTREE2EV, np.asarray(f)[order]
+        if ref is None:
+            ref = (mf.e_tot, e, f)
+        row = {"system": args.system, "basis": args.basis, "grid_level": args.grid_level,
+               "nao": mol.nao, "case": label, "settings": json.dumps(change),
+               "scf_s": round(t_scf, 1), "scf_cycles": cycles, "response_s": round(t_resp, 1),
+               "dE_scf_hartree": float(mf.e_tot - ref[0]),
+               "max_abs_dE_mev": float(np.max(np.abs(e - ref[1]))) * 1e3,
+               "max_abs_df": float(np.max(np.abs(f - ref[2]))),
+               "energies_ev": " ".join(f"{x:.5f}" for x in e), "threads": args.threads,
+               "host": platform.node(), "date": time.strftime("%Y-%m-%d %H:%M")}
+        rows.append(row)
+        print(f"{label:58s} SCF {t_scf:6.1f} s  response {t_resp:6.1f} s  "
+              f"dE_scf {row['dE_scf_hartree']:+.2e} Eh  max|dE| {row['max_abs_dE_mev']:.4f} meV"
+              f"  max|df| {row['max_abs_df']:.1e}", flush=True)
+    out = ROOT / args.tsv
+    out.parent.mkdir(parents=True, exist_ok=True)
+    pd.DataFrame(rows).to_csv(out, sep="\t", index=False, mode="a", header=not out.exists())
+    print(f"appended to {out}")
+
+
+if __name__ == "__main__":
+    main()
