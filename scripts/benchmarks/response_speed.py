@@ -61,9 +61,12 @@ def run(path, name, args, q):
         s.df_storage = args.df_storage
         s.response_grid_level = args.response_grid_level
         s.occ_window_ev, s.vir_window_ev = args.occ_window, args.vir_window
+        s.pcm_fit = args.pcm_fit
     t0 = time.perf_counter()
     mol = build_molecule(el, xyz, 0, 0, s.basis, s.max_memory_mb)
     mf = make_scf(mol, s)
+    if args.verbose:  # PySCF's per-cycle energies and timings, as a profile of the SCF
+        mf.verbose, mf.stdout = 4, sys.stdout
     if path == "stock":
         mf._numint = numint.NumInt()  # PySCF's own XC integration
     mf, _, cycles = run_scf(mf)
@@ -120,6 +123,8 @@ def main():
     ap.add_argument("--stock-timeout", type=float, default=None, help="seconds")
     ap.add_argument("--fast-timeout", type=float, default=None, help="seconds")
     ap.add_argument("--df-storage", default="float32", choices=["float32", "float64", "pyscf"])
+    ap.add_argument("--pcm-fit", action="store_true", help="fitted PCM potential (fast path)")
+    ap.add_argument("--verbose", action="store_true", help="PySCF's per-cycle SCF log")
     ap.add_argument("--response-grid-level", type=int, default=None)
     ap.add_argument("--occ-window", type=float, default=None, help="eV below the HOMO")
     ap.add_argument("--vir-window", type=float, default=None, help="eV above the LUMO")
@@ -131,6 +136,7 @@ def main():
         stock, stock_wall = measure("stock", name, args, args.stock_timeout)
         row = {"system": name, "basis": args.basis, "grid_level": args.grid_level,
                "response_grid_level": args.response_grid_level, "df_storage": args.df_storage,
+               "pcm_fit": args.pcm_fit,
                "occ_window_ev": args.occ_window, "vir_window_ev": args.vir_window,
                "nao": (fast or stock or {}).get("nao")}
         for tag, rec, wall in (("fast", fast, fast_wall), ("stock", stock, stock_wall)):

@@ -19,6 +19,13 @@ import numpy as np
 import scipy.linalg
 from pyscf import df, gto, lib
 from pyscf.solvent import pcm
+from threadpoolctl import threadpool_limits
+
+
+def _blas():
+    """All OpenMP threads PySCF was given, for the BLAS calls made here (siteshift keeps BLAS
+    single-threaded elsewhere, where PySCF's own OpenMP loops call it)."""
+    return threadpool_limits(max(1, lib.num_threads()), user_api="blas")
 
 
 def _metric_factor(j2c):
@@ -116,8 +123,9 @@ class CompactDF(df.DF):
             auxmol = df.addons.make_auxmol(self.mol, auxbasis)
             self.auxmol = auxmol
             metric = [None, None]
-            self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage, self.block_mb,
-                                             metric_out=metric)
+            with _blas():
+                self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage,
+                                                 self.block_mb, metric_out=metric)
             self._metrics[key] = tuple(metric)
         return self._tensors[key]
 
@@ -186,6 +194,10 @@ class CompactDF(df.DF):
                 chunks = chunks[1:]
 
     def get_jk(self, dm, hermi=1, with_j=True, with_k=True, direct_scf_tol=None, omega=None):
+        with _blas():
+            return self._get_jk(dm, hermi, with_j, with_k, omega)
+
+    def _get_jk(self, dm, hermi, with_j, with_k, omega):
         if omega is not None and omega < 0:
             raise NotImplementedError("short-range (omega < 0) fitted exchange is not provided "
                                       "by CompactDF")
@@ -260,8 +272,10 @@ class FittedPCM(pcm.PCM):
         return self._w
 
     def _get_v(self, dms):
-        return self.fit_df.fit_density(dms) @ self._fit_weights()
+        with _blas():
+            return self.fit_df.fit_density(dms) @ self._fit_weights()
 
     def _get_vmat(self, q):
-        w = self._fit_weights()
-        return -self.fit_df.contract_aux(np.reshape(q, (-1, w.shape[1])) @ w.T)
+        with _blas():
+            w = self._fit_weights()
+            return -self.fit_df.contract_aux(np.reshape(q, (-1, w.shape[1])) @ w.T)

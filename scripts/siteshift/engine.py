@@ -319,9 +319,11 @@ class FastTDA:
         if hasattr(mf, "with_solvent"):
             self._build_pcm(mf, settings)
         t3 = time.perf_counter()
+        kx = self.kernel_xc
+        how = f"cached as {np.dtype(kx.cache_dtype).name}" if kx.cached else "recomputed"
         self.log(f"fast TDA set-up: DF tensors {t1 - t0:.1f} s, XC kernel {t2 - t1:.1f} s "
                  f"({self.response_grid_points} points, orbital values "
-                 f"{'cached' if self.kernel_xc.cached else 'recomputed'}, "
+                 f"{how}, "
                  f"{self.kernel_xc.cache_mb:.0f} MB), PCM operator {t3 - t2:.1f} s "
                  f"(window: {self.nocc}/{self.nocc_all} occupied, {self.nvir}/{self.nvir_all} "
                  f"virtual)")
