@@ -397,6 +397,7 @@ class FastTDA:
             self.V[p0:p1] = lib.einsum("Lin,na->Lia", half, self.orbv)
 
     def matvec(self, xs):
+        t0 = time.perf_counter()
         xs = np.asarray(xs).reshape(-1, self.nocc, self.nvir)
         out = xs * self.e_ia
         # Coulomb: 2 (ia|jb) x_jb
@@ -416,8 +417,11 @@ class FastTDA:
                 vv = lib.unpack_tril(np.asarray(Bvv[p0:p1], dtype=np.float64))
                 tmp = lib.einsum("Pab,xjb->xPja", vv, xs)
                 out -= c * lib.einsum("Pij,xPja->xia", Boo[p0:p1], tmp)
+        t1 = time.perf_counter()
         # XC kernel on the response grid, in the MO basis
         out += self.kernel_xc(xs)
+        self.log(f"response product: {len(xs)} vectors, Coulomb+exchange {t1 - t0:.1f} s, "
+                 f"XC kernel {time.perf_counter() - t1:.1f} s")
         # non-equilibrium PCM: 2 Vᵀ M V x
         if self.V is not None:
             vg = lib.einsum("gia,xia->xg", self.V, xs)
