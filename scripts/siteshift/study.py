@@ -357,6 +357,7 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
             cold = run_scf(make_scf(mol, s))[2]
         dms.append(np.asarray(res.pop("_dm")))
         xs.append(1.0 / eps)
+        del dms[:-2], xs[:-2]  # the guess needs the last two points only
         points.append({"eps_static": eps, "eps_optical": min(n2, eps),
                        "scf_cycles": res["scf_cycles"], "scf_cycles_cold": cold,
                        "warm_start": k > 0, "scf_guess": guess,
