@@ -79,6 +79,17 @@ def build_cderi(mol, auxmol, omega=0.0, dtype=np.float32, block_mb=400, metric_o
     return out
 
 
+def _pair_density(dms):
+    """D_μν + D_νμ packed over μ ≥ ν (diagonal once): Σ_pairs L_P,pair · this = Σ_μν L_P,μν D_μν."""
+    dms = np.asarray(dms, dtype=np.float64)
+    nao = dms.shape[-1]
+    dms = dms.reshape(-1, nao, nao)
+    dtril = lib.pack_tril(dms + dms.transpose(0, 2, 1))
+    idx = np.arange(nao)
+    dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
+    return dtril
+
+
 def _factor(dm, hermi, mo_coeff=None, mo_occ=None):
     """(U, V) with dm = U Vᵀ, of the lowest rank we can find cheaply."""
     if mo_coeff is not None and mo_occ is not None and hermi == 1:
@@ -140,14 +151,8 @@ class CompactDF(df.DF):
 
     def fit_density(self, dms):
         """ρ_P = Σ_μν L_P,μν D_μν for each density (nset, naux); the D are symmetrised."""
-        dms = np.asarray(dms, dtype=np.float64)
-        nao = dms.shape[-1]
-        dms = dms.reshape(-1, nao, nao)
-        sym = dms + dms.transpose(0, 2, 1)
-        dtril = lib.pack_tril(sym)
-        idx = np.arange(nao)
-        dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
-        out = np.empty((len(dms), self.naux()))
+        dtril = _pair_density(dms)
+        out = np.empty((len(dtril), self.naux()))
         for p0, p1, blk in self.blocks(0.0):
             out[:, p0:p1] = dtril @ blk.T
         return out
@@ -218,10 +223,7 @@ class CompactDF(df.DF):
         vj = np.zeros_like(dms) if with_j else None
         vk = np.zeros_like(dms) if with_k else None
         if with_j:
-            sym = dms + dms.transpose(0, 2, 1)
-            dtril = lib.pack_tril(sym)
-            idx = np.arange(nao)
-            dtril[:, idx * (idx + 1) // 2 + idx] *= 0.5
+            dtril = _pair_density(dms)
             jtril = np.zeros((nset, nao * (nao + 1) // 2))
         factors = ([_factor(dms[k], hermi, mo_coeff[k], mo_occ[k]) for k in range(nset)]
                    if with_k else [])

@@ -60,6 +60,16 @@ def flush_tiny(a):
     return a
 
 
+def gga_density(ao, c, sign):
+    """(ρ, ∇ρ) on a block from AO values (4, ng, nao) and D = C diag(sign) Cᵀ."""
+    psi = ao[0] @ c
+    rho = np.empty((4, psi.shape[0]))
+    rho[0] = (psi * psi) @ sign
+    for k in range(1, 4):
+        rho[k] = 2.0 * ((psi * (ao[k] @ c)) @ sign)
+    return rho
+
+
 def active_aos(mask, ao_loc):
     """AO indices of the shells that survive PySCF's screening anywhere in this block."""
     if mask is None:
@@ -85,7 +95,7 @@ class DenseNumInt(numint.NumInt):
             return self._nr_rks_dense(mol, grids, xc_code, dms, max_memory)
 
     def _nr_rks_dense(self, mol, grids, xc_code, dms, max_memory):
-        dm = np.asarray(dms)
+        dm = np.asarray(dms)  # dms may carry mo_coeff/mo_occ tags, dm is the plain array
         c, sign = density_factor(dm, getattr(dms, "mo_coeff", None), getattr(dms, "mo_occ", None))
         nao = mol.nao
         ao_loc = mol.ao_loc_nr()
@@ -102,12 +112,7 @@ class DenseNumInt(numint.NumInt):
                 ci = c[idx]
             else:
                 ci = c
-            ng = weight.size
-            psi = ao[0] @ ci
-            rho = np.empty((4, ng))
-            rho[0] = (psi * psi) @ sign
-            for k in range(1, 4):
-                rho[k] = 2.0 * ((psi * (ao[k] @ ci)) @ sign)
+            rho = gga_density(ao, ci, sign)
             exc, vxc = self.eval_xc_eff(xc_code, rho, deriv=1, xctype="GGA")[:2]
             flush_tiny(vxc)
             den = rho[0] * weight
@@ -168,10 +173,7 @@ class MOKernel:
                                                          max_memory=self.max_memory_mb):
                 flush_tiny(ao)
                 p1 = p0 + weight.size
-                psi = ao[0] @ c
-                rho[0, p0:p1] = (psi * psi) @ sign
-                for k in range(1, 4):
-                    rho[k, p0:p1] = 2.0 * ((psi * (ao[k] @ c)) @ sign)
+                rho[:, p0:p1] = gga_density(ao, c, sign)
                 p0 = p1
         return self.ni.eval_xc_eff(self.xc, rho, deriv=2, xctype="GGA")[2]
 
