@@ -2,6 +2,9 @@ rule sweep_epsilon:
     input:
         model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
         tuning=tuning_input,
+        # the site calculation's density starts the sweep (sweep.anchor_on_site)
+        site=lambda w: (f"{RESULTS}/{w.variant}/pigments/{w.pigment}/excited_states.json"
+                        if SWEEP.get("anchor_on_site", True) else []),
     output:
         json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/eps_sweep.json",
     log:
@@ -17,6 +20,7 @@ rule sweep_epsilon:
         grid=SWEEP.get("eps_static", [2.0, 4.0, 8.0, 16.0]),
         n2=SWEEP.get("n2", 2.0),
         measure_cold_start=SWEEP.get("measure_cold_start", False),
+        cache=f"{RESULTS}/qm_cache",
     conda:
         "../config/envs/siteshift.yaml"
     script:

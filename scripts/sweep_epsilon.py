@@ -3,11 +3,12 @@ import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.engine import configure_threads
-from siteshift.study import setup_logging, sweep_stage
+from siteshift.study import setup_logging, sweep_anchor, sweep_stage
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 configure_threads(sm.threads)
+anchor = sweep_anchor(sm.input.site or None, sm.params.cache, sm.params.qm)
 sweep_stage(sm.input.model, sm.output.json, sm.params.qm, sm.params.grid, n2=sm.params.n2,
             tuning_json=sm.input.tuning or None, variant=sm.wildcards.variant,
-            measure_cold_start=sm.params.measure_cold_start)
+            measure_cold_start=sm.params.measure_cold_start, anchor=anchor)

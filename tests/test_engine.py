@@ -114,8 +114,9 @@ def test_optical_dielectric_is_the_one_used(ch2o_pcm):
     gas_td.conv_tol = 1e-8
     gas_td.kernel()
     assert np.max(np.abs(np.sort(gas_td.e)[:3] - np.sort(e10))) * HARTREE2EV < 1e-5
-    # the stock path through the engine records the value it used
-    *_, eps_stock = stock_response(mf, s15)
+    # the stock path through the engine records the value it used (6 states asked: PySCF's
+    # Davidson can stall on a root of this symmetric molecule, as above)
+    *_, eps_stock = stock_response(mf, ExciteSettings(**{**s15.__dict__, "nstates": 6}))
     assert eps_stock == 1.5
 
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from pyscf import df, dft, gto, lib, scf
 
-from siteshift.dfjk import CompactDF, FittedPCM
+from siteshift.dfjk import CompactDF, FittedPCM, pack_sym, unpack_sym
 from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule, fast_response,
                               make_scf, run_scf)
 from siteshift.functional import SRSH
@@ -62,23 +62,72 @@ def test_flush_tiny_zeroes_only_tiny_values():
     a = np.asfortranarray(np.array([[1e-49, 1e-51], [-1e-60, 5e-324], [-2.0, 0.0]]))
     flush_tiny(a)
     assert a.tolist() == [[1e-49, 0.0], [0.0, 0.0], [-2.0, 0.0]]
+    b = np.array([1e-14, 1e-16, -1e-20, 1e-40, -3.0], dtype=np.float32)
+    flush_tiny(b)
+    assert b.tolist() == [np.float32(1e-14), 0.0, 0.0, 0.0, -3.0]
 
 
-def test_mo_kernel_equals_pyscf_fxc(meoh):
+@pytest.mark.parametrize("cache", ["float64", "float32"])
+def test_mo_kernel_equals_pyscf_fxc(meoh, cache):
     # Reference: PySCF's nr_rks_fxc (spin-0 kernel) on the transition density 2·C_o x C_vᵀ,
-    # projected on the occupied-virtual block.
+    # projected on the occupied-virtual block. A float32 orbital cache means float32 grid sums
+    # (relative error ~1e-6 expected from 4096-point float32 sums).
     mf = dft.RKS(meoh, xc=SRSH(0.2, 0.25, 4.0).xc)
     mf.grids.level = 1
     mf.run()
     occ = mf.mo_occ > 0
     o, v = mf.mo_coeff[:, occ], mf.mo_coeff[:, ~occ]
-    kern = MOKernel(mf, mf.grids, o, v)
+    need_mb = mf.grids.weights.size * 4 * mf.mol.nao * 8 / 1e6
+    kern = MOKernel(mf, mf.grids, o, v, cache_mb=need_mb if cache == "float64" else need_mb / 1.5)
+    assert np.dtype(kern.cache_dtype) == np.dtype(cache)
     xs = np.random.default_rng(2).standard_normal((3, o.shape[1], v.shape[1]))
     rho0, vxc, fxc = mf._numint.cache_xc_kernel(meoh, mf.grids, mf.xc, mf.mo_coeff, mf.mo_occ, 0)
     dms = lib.einsum("xov,qv,po->xpq", 2 * xs, v, o)
     ref = mf._numint.nr_rks_fxc(meoh, mf.grids, mf.xc, None, dms, 0, 0, rho0, vxc, fxc)
     ref = lib.einsum("xpq,po,qv->xov", ref, o, v)
-    assert np.max(np.abs(kern(xs) - ref)) < 1e-10
+    tol = 1e-10 if cache == "float64" else 1e-5 * np.max(np.abs(ref))
+    assert np.max(np.abs(kern(xs) - ref)) < tol
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_pack_unpack_symmetric_rows(dtype):
+    # Reference: PySCF's lib.unpack_tril / pack_tril (float64) on the same numbers.
+    rng = np.random.default_rng(3)
+    packed = rng.standard_normal((5, 150 * 151 // 2)).astype(dtype)
+    ref = lib.unpack_tril(packed.astype(np.float64))
+    full = unpack_sym(packed, 150, np.empty((5, 150, 150), dtype=dtype))
+    assert full.dtype == dtype and np.array_equal(full, ref.astype(dtype))
+    assert np.array_equal(pack_sym(full), packed)
+
+
+def test_float32_exchange_close_to_pyscf(meoh):
+    # Reference: PySCF's df.DF exchange. float32 arithmetic (used for the early SCF cycles):
+    # relative error ~1e-6 expected from sums of ~1e4 float32 products.
+    ref = df.DF(meoh).build()
+    mine = CompactDF(meoh, storage="float32")
+    mine.k_dtype = np.float32
+    dm = scf.RHF(meoh).run().make_rdm1()
+    for omega in (None, 0.3):
+        k0 = ref.get_jk(dm, hermi=1, omega=omega)[1]
+        k1 = mine.get_jk(dm, hermi=1, omega=omega)[1]
+        assert k1.dtype == np.float64
+        assert np.max(np.abs(k1 - k0)) <= 1e-5 * np.max(np.abs(k0))
+
+
+def test_mixed_precision_scf_converges_to_the_float64_state():
+    # float32 exchange for the early cycles must not change the converged state (same SCF,
+    # float64 exchange throughout, as the reference) nor leave the tensor in float32 mode.
+    s = ExciteSettings(alpha=0.2, omega=0.3, eps_static=4.0, basis="6-31g", grid_level=1,
+                       lebedev_order=11, conv_tol=1e-10)
+    mol = build_molecule(*CH2O, basis=s.basis)
+    lines = []
+    mixed, _, n_mixed = run_scf(make_scf(mol, s), log=lines.append)
+    plain, _, n_plain = run_scf(make_scf(mol, s), mixed_precision=False)
+    assert "with float32 exchange" in lines[-1] and " 0 with float32" not in lines[-1]
+    assert abs(mixed.e_tot - plain.e_tot) < 1e-9
+    assert np.max(np.abs(mixed.make_rdm1() - plain.make_rdm1())) < 1e-5
+    assert mixed.with_df.k_dtype == np.float64 and mixed.check_convergence is None
+    assert n_mixed <= n_plain + 2
 
 
 def _ch2o(basis="6-31g", **kw):
@@ -139,3 +188,20 @@ def test_orbital_windows(ch2o_exact):
     e = np.asarray(mf.mo_energy)
     lumo = e[mf.mo_occ == 0].min()
     assert nv == int(np.sum((e[mf.mo_occ == 0] - lumo) * HARTREE2EV <= 20.0)) < solver.nvir_all
+
+
+def test_davidson_warm_start_from_previous_amplitudes(ch2o_exact):
+    # Starting the Davidson from converged amplitudes (as an ε sweep passes one point's
+    # amplitudes to the next) must reach the same states in fewer products; also through a
+    # frozen-core window (amplitudes are given over all pairs and cut to the window).
+    mf, s = ch2o_exact
+    cold, warm = {}, {}
+    e0, f0, *_ = fast_response(mf, s, stats=cold)
+    e1, f1, *_ = fast_response(mf, s, stats=warm, x0=cold["xs"])
+    assert warm["warm_start"] and not cold["warm_start"]
+    assert np.max(np.abs(e1 - e0)) * HARTREE2EV < 1e-6 and np.max(np.abs(f1 - f0)) < 1e-5
+    assert warm["products"] < cold["products"]
+    s_core = ExciteSettings(**{**s.__dict__, "occ_window_ev": 30.0})
+    core = {}
+    e2, *_ = fast_response(mf, s_core, stats=core, x0=cold["xs"])
+    assert core["warm_start"] and np.max(np.abs(e2 - e0)) * HARTREE2EV < 1e-3

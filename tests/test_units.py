@@ -56,3 +56,17 @@ def test_presets_and_explicit_keys():
     s = qm_settings({"preset": "full", "basis": "def2-tzvp"}, nstates=6)
     assert s.basis == "def2-tzvp" and s.grid_level == QM_PRESETS["full"]["grid_level"]
     assert s.nstates == 6 and s.eps_screen == 1.0
+
+
+def test_sweep_guess_kinds_and_interpolation():
+    # Linear in x = 1/ε through the last two points (exact for a density linear in 1/ε); two
+    # points at the same ε (an anchor equal to a grid point) fall back to the previous density.
+    from siteshift.study import sweep_guess
+    d = lambda x: np.array([[1.0 + 2.0 * x]])  # noqa: E731
+    assert sweep_guess([], [], 4.0) == ("default", None)
+    kind, dm = sweep_guess([d(0.5)], [0.5], 4.0)
+    assert kind == "previous" and dm[0, 0] == d(0.5)[0, 0]
+    kind, dm = sweep_guess([d(0.12), d(0.5)], [0.12, 0.5], 4.0)
+    assert kind == "extrapolated" and abs(dm[0, 0] - d(0.25)[0, 0]) < 1e-12
+    kind, dm = sweep_guess([d(0.25), d(0.25)], [0.25, 0.25], 8.0)
+    assert kind == "previous"

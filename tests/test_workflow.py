@@ -110,6 +110,10 @@ def test_eps_sweep_outputs(study):
     assert s1.energy_ev.notna().all() and len(s1) == 2
     second = sw[sw.eps_static == 8.0].iloc[0]
     assert second.scf_cycles_cold > 0 and second.scf_cycles <= second.scf_cycles_cold
+    # anchored on the site calculation (sweep.anchor_on_site, default): the first point starts
+    # from the site density, the second from the interpolation in 1/ε
+    assert set(sw[sw.eps_static == 2.0].scf_guess) == {"previous"}
+    assert set(sw[sw.eps_static == 8.0].scf_guess) == {"extrapolated"}
     tg = pd.read_csv(study / "results/tables/eps_targets.tsv", sep="\t")
     # the two pockets hold exact two-fold copies of the pigment, and in a uniform continuum
     # nothing else distinguishes them: their splitting cannot depend on ε

@@ -29,6 +29,7 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
+HARTREE_EV = 27.211386245988  # CODATA 2018, as pyscf.data.nist.HARTREE2EV
 sys.path.insert(0, str(ROOT / "scripts"))
 
 
@@ -75,20 +76,88 @@ def run(path, name, args, q):
     q.put({"path": path, "nao": mol.nao, "scf_s": t1 - t0, "scf_cycles": cycles,
            "scf_energy": mf.e_tot, "peak_rss_mb": rss()})
     log = (lambda m: print(f"[{path}] {m}", flush=True))
-    e, f, *_ = (fast_response(mf, s, log=log) if path == "fast" else stock_response(mf, s))
+    log(f"SCF {t1 - t0:.1f} s, {cycles} cycles, E = {mf.e_tot:.10f} Eh")
+    stats = {}
+    e, f, *_ = (fast_response(mf, s, log=log, stats=stats) if path == "fast"
+                else stock_response(mf, s))
     t2 = time.perf_counter()
     order = np.argsort(e)
-    q.put({"path": path, "nao": mol.nao, "scf_s": t1 - t0, "scf_cycles": cycles,
+    rec = {"path": path, "nao": mol.nao, "scf_s": t1 - t0, "scf_cycles": cycles,
            "scf_energy": mf.e_tot, "response_s": t2 - t1, "peak_rss_mb": rss(),
-           "e_ev": (np.asarray(e)[order] * 27.211386245988).tolist(),
-           "f": np.asarray(f)[order].tolist()})
+           "e_ev": (np.asarray(e)[order] * HARTREE_EV).tolist(),
+           "f": np.asarray(f)[order].tolist()}
+    if stats:
+        rec.update(vectors=stats["vectors"], products=stats["products"],
+                   product_s=stats["product_s"], setup_s=stats["setup_s"])
+        if args.state:  # ground state and amplitudes for the stock check in another process
+            np.savez(args.state, mo_coeff=mf.mo_coeff, mo_energy=mf.mo_energy, mo_occ=mf.mo_occ,
+                     e_tot=mf.e_tot, xs=stats["xs"][order], e=np.asarray(e)[order])
+    q.put(rec)
+
+
+def check(path, name, args, q):
+    """PySCF's stock TDA operator on the fast path's ground state and amplitudes.
+
+    One product of PySCF's response function (its DF exchange on AO densities, its XC kernel,
+    its PCM response with the same ε_optical) with the fast path's normalised eigenvectors x
+    gives the Rayleigh quotients xᵀAx, which equal PySCF's eigenvalues to second order in the
+    residual |Ax − (xᵀAx)x| (also reported), and the time of one stock product per trial vector.
+    With --stock-refine, PySCF's own Davidson then continues from these vectors to convergence.
+    """
+    import numpy as np
+    from pyscf.dft import numint
+    from siteshift.engine import (ExciteSettings, _response_solvent, build_molecule,
+                                  configure_threads, make_scf)
+    configure_threads(args.threads)
+    el, xyz = system(name)
+    s = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,
+                       eps_optical=2.0, omega=0.2, nstates=4, lebedev_order=args.lebedev,
+                       max_memory_mb=args.max_memory, df_storage="pyscf")
+    mol = build_molecule(el, xyz, 0, 0, s.basis, s.max_memory_mb)
+    mf = make_scf(mol, s)
+    mf._numint = numint.NumInt()
+    st = np.load(args.state)
+    mf.mo_coeff, mf.mo_energy, mf.mo_occ = st["mo_coeff"], st["mo_energy"], st["mo_occ"]
+    mf.e_tot, mf.converged = float(st["e_tot"]), True
+    mf.grids.build(with_non0tab=True)
+    t0 = time.perf_counter()
+    td = mf.TDA()
+    td.nstates, td.conv_tol = s.nstates, 1e-7
+    td.with_solvent = _response_solvent(mf, s)
+    vind, _hdiag = td.gen_vind(mf)
+    t1 = time.perf_counter()
+    x = st["xs"].reshape(len(st["xs"]), -1)
+    x = x / np.linalg.norm(x, axis=1)[:, None]
+    ax = np.asarray(vind(x)).reshape(x.shape)
+    t2 = time.perf_counter()
+    rq = np.einsum("si,si->s", x, ax)
+    res = np.linalg.norm(ax - rq[:, None] * x, axis=1)
+    rss = lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # noqa: E731
+    rec = {"path": "stock-check", "nao": mol.nao, "setup_s": t1 - t0, "product_s": t2 - t1,
+           "vectors": len(x), "rq_ev": (rq * HARTREE_EV).tolist(),
+           "max_abs_dE_rq_ev": float(np.max(np.abs(rq - st["e"]))) * HARTREE_EV,
+           "max_residual": float(res.max()), "peak_rss_mb": rss()}
+    print(f"[stock-check] one stock product, {len(x)} vectors: {t2 - t1:.1f} s (set-up "
+          f"{t1 - t0:.1f} s); Rayleigh quotients {rec['rq_ev']} eV; fast "
+          f"{(st['e'] * HARTREE_EV).tolist()} eV; residuals {res.tolist()}", flush=True)
+    q.put(dict(rec))
+    if args.stock_refine:
+        t3 = time.perf_counter()
+        td.kernel(x0=list(x * np.sqrt(0.5)))
+        e = np.asarray(td.e)
+        order = np.argsort(e)
+        rec.update(refine_s=time.perf_counter() - t3,
+                   e_ev=(e[order] * HARTREE_EV).tolist(),
+                   f=np.asarray(td.oscillator_strength(gauge="length"))[order].tolist(),
+                   peak_rss_mb=rss())
+        q.put(rec)
 
 
 def measure(path, name, args, timeout):
     """The last record the path reached (SCF only if the response ran out of time), or None."""
     ctx = mp.get_context("fork")
     q = ctx.Queue()
-    p = ctx.Process(target=run, args=(path, name, args, q))
+    p = ctx.Process(target=check if path == "stock-check" else run, args=(path, name, args, q))
     t0 = time.perf_counter()
     p.start()
     last = None
@@ -105,6 +174,46 @@ def measure(path, name, args, timeout):
             break
     p.join()
     return last, round(time.perf_counter() - t0, 1)
+
+
+def check_row(name, args, fast, fast_wall, stock, stock_wall):
+    """TSV row of a fast run checked with one stock product (see :func:`check`)."""
+    fast, stock = fast or {}, stock or {}
+    row = {"system": name, "basis": args.basis, "grid_level": args.grid_level,
+           "response_grid_level": args.response_grid_level, "df_storage": args.df_storage,
+           "pcm_fit": args.pcm_fit, "occ_window_ev": args.occ_window,
+           "vir_window_ev": args.vir_window, "nao": fast.get("nao"), "stock_mode": "check",
+           "fast_scf_s": _r(fast.get("scf_s")), "fast_scf_cycles": fast.get("scf_cycles"),
+           "fast_response_s": _r(fast.get("response_s")),
+           "fast_peak_rss_mb": _r(fast.get("peak_rss_mb"), 0), "fast_wall_s": fast_wall,
+           "fast_finished": "response_s" in fast,
+           "fast_job_s": (_r(fast["scf_s"] + fast["response_s"])
+                          if "response_s" in fast else None),
+           "fast_products": fast.get("products"), "fast_vectors": fast.get("vectors"),
+           "fast_setup_s": _r(fast.get("setup_s")), "fast_product_s": _r(fast.get("product_s")),
+           "stock_check_setup_s": _r(stock.get("setup_s")),
+           "stock_check_product_s": _r(stock.get("product_s")),
+           "stock_check_vectors": stock.get("vectors"), "stock_wall_s": stock_wall,
+           "stock_peak_rss_mb": _r(stock.get("peak_rss_mb"), 0),
+           "max_abs_dE_rq_ev": stock.get("max_abs_dE_rq_ev"),
+           "max_residual_stock": stock.get("max_residual")}
+    if fast.get("vectors") and stock.get("vectors"):
+        fs = fast["product_s"] / fast["vectors"]
+        ss = stock["product_s"] / stock["vectors"]
+        row.update(fast_s_per_vector=_r(fs, 2), stock_s_per_vector=_r(ss, 2),
+                   product_speedup=_r(ss / fs, 2),
+                   # estimate: the stock Davidson taking as many trial vectors as the fast one
+                   stock_response_est_s=_r(stock["setup_s"] + ss * fast["vectors"]),
+                   response_speedup_est=_r((stock["setup_s"] + ss * fast["vectors"])
+                                           / fast["response_s"], 2))
+    if "e_ev" in stock and "e_ev" in fast:
+        row.update(max_abs_dE_ev=max(abs(a - b) for a, b in zip(fast["e_ev"], stock["e_ev"])),
+                   max_abs_df=max(abs(a - b) for a, b in zip(fast["f"], stock["f"])),
+                   stock_refine_s=_r(stock.get("refine_s")))
+    row.update(energies_ev=" ".join(f"{x:.5f}" for x in fast.get("e_ev", [])),
+               oscillator_strengths=" ".join(f"{x:.4f}" for x in fast.get("f", [])),
+               threads=args.threads, host=platform.node(), date=time.strftime("%Y-%m-%d %H:%M"))
+    return row
 
 
 def _r(x, nd=1):
@@ -128,11 +237,28 @@ def main():
     ap.add_argument("--response-grid-level", type=int, default=None)
     ap.add_argument("--occ-window", type=float, default=None, help="eV below the HOMO")
     ap.add_argument("--vir-window", type=float, default=None, help="eV above the LUMO")
+    ap.add_argument("--stock-mode", default="full", choices=["full", "check"],
+                    help="full: PySCF's SCF and TDA from scratch; check: PySCF's TDA operator on "
+                         "the fast path's ground state and eigenvectors (one timed product, "
+                         "Rayleigh quotients)")
+    ap.add_argument("--stock-refine", action="store_true",
+                    help="check mode: continue with PySCF's Davidson from the fast vectors")
     ap.add_argument("--tsv", default="benchmarks/response_speed.tsv")
     args = ap.parse_args()
     rows = []
     for name in args.systems.split(","):
+        args.state = None
+        if args.stock_mode == "check":
+            import tempfile
+            args.state = str(Path(tempfile.mkdtemp()) / f"{name}_state.npz")
         fast, fast_wall = measure("fast", name, args, args.fast_timeout)
+        if args.stock_mode == "check":
+            stock, stock_wall = ((measure("stock-check", name, args, args.stock_timeout))
+                                 if fast and "e_ev" in fast else (None, 0.0))
+            row = check_row(name, args, fast, fast_wall, stock, stock_wall)
+            rows.append(row)
+            print(json.dumps(row, indent=1), flush=True)
+            continue
         stock, stock_wall = measure("stock", name, args, args.stock_timeout)
         row = {"system": name, "basis": args.basis, "grid_level": args.grid_level,
                "response_grid_level": args.response_grid_level, "df_storage": args.df_storage,

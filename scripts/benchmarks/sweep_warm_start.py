@@ -1,11 +1,16 @@
 #!/usr/bin/env python
-"""Benchmark: SCF cycles per ε-sweep point from the default guess, the previous point's density,
-and the extrapolation in 1/ε that the sweep stage uses (siteshift.study.sweep_guess).
+"""Benchmark: SCF cycles and response products per ε-sweep point for each way of starting it.
+
+Starts: default (PySCF's guess, cold response), previous (the previous point's density),
+extrapolated (linear extrapolation of the last two densities in 1/ε, siteshift.study.sweep_guess),
+anchored (as the sweep stage runs by default: the site calculation's density at --site-eps is the
+point before the first one, and each response starts from the previous point's amplitudes).
 
     python scripts/benchmarks/sweep_warm_start.py [--system hc4] [--basis 6-31g] [--grid-level 1]
 
-Prints one line per point and the mean cycles per extra point (all but the first) for each start,
-and appends the rows to benchmarks/sweep_warm_start.tsv.
+Prints one line per point and the mean SCF cycles per extra point (all points after the first SCF
+of the sweep: after the first point, or every point when anchored), and appends the rows to
+benchmarks/sweep_warm_start.tsv.
 """
 from __future__ import annotations
 
@@ -24,8 +29,7 @@ def main():
     import numpy as np
     import pandas as pd
     from response_speed import system
-    from siteshift.engine import (ExciteSettings, build_molecule, configure_threads, make_scf,
-                                  run_scf)
+    from siteshift.engine import ExciteSettings, configure_threads, excite
     from siteshift.study import sweep_guess
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -35,38 +39,64 @@ def main():
     ap.add_argument("--eps", default="2,4,8,16")
     ap.add_argument("--n2", type=float, default=2.0)
     ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--site-eps", type=float, default=8.33,
+                    help="ε_static of the site calculation that anchors the 'anchored' sweep")
+    ap.add_argument("--starts", default="default,previous,extrapolated,anchored")
     ap.add_argument("--tsv", default="benchmarks/sweep_warm_start.tsv")
     args = ap.parse_args()
     configure_threads(args.threads)
     el, xyz = system(args.system)
     grid = sorted(float(e) for e in args.eps.split(","))
     rows = []
-    for start in ("default", "previous", "extrapolated"):
-        dms, xs = [], []
+
+    def settings(eps):
+        return ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=eps,
+                              eps_optical=min(args.n2, eps), omega=0.2, lebedev_order=11)
+
+    for start in args.starts.split(","):
+        dms, xs, amps = [], [], None
+        if start == "anchored":  # the site calculation, not a sweep point
+            site = excite(el, xyz, settings=settings(args.site_eps), keep_density=True)
+            dms, xs = [np.asarray(site["_dm"])], [1.0 / args.site_eps]
+            print(f"anchor eps={args.site_eps}: {site['scf_cycles']} SCF cycles", flush=True)
         for k, eps in enumerate(grid):
-            s = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=eps,
-                               eps_optical=min(args.n2, eps), omega=0.2, lebedev_order=11)
-            mol = build_molecule(el, xyz, 0, 0, s.basis, s.max_memory_mb)
             kind, dm = (("default", None) if start == "default" else
-                        sweep_guess(dms, xs, eps, extrapolate=start == "extrapolated"))
+                        sweep_guess(dms, xs, eps, extrapolate=start != "previous"))
             t = time.perf_counter()
-            mf, _, cycles = run_scf(make_scf(mol, s), dm0=dm)
-            dms.append(np.asarray(mf.make_rdm1()))
+            res = excite(el, xyz, settings=settings(eps), dm0=dm, keep_density=True,
+                         x0=amps if start == "anchored" else None)
+            dms.append(np.asarray(res.pop("_dm")))
             xs.append(1.0 / eps)
+            del dms[:-2], xs[:-2]
+            amps = res.pop("_xs", None)
             rows.append({"system": args.system, "basis": args.basis, "start": start,
-                         "eps_static": eps, "guess": kind, "scf_cycles": cycles,
-                         "scf_s": round(time.perf_counter() - t, 2), "energy": mf.e_tot,
+                         "eps_static": eps, "guess": kind, "scf_cycles": res["scf_cycles"],
+                         "response_products": res["response"]["products"],
+                         "response_vectors": res["response"]["trial_vectors"],
+                         "response_warm_start": res["response"]["warm_start"],
+                         "site_eps": args.site_eps if start == "anchored" else None,
+                         "time_s": round(time.perf_counter() - t, 2),
+                         "energy": res["scf_energy_hartree"],
+                         "s1_ev": res["states"][0]["energy_ev"],
                          "host": platform.node(), "date": time.strftime("%Y-%m-%d %H:%M")})
-            print(f"{start:12s} eps={eps:5.1f} guess={kind:12s} cycles={cycles:3d} "
-                  f"{rows[-1]['scf_s']:6.1f} s", flush=True)
+            r = rows[-1]
+            print(f"{start:12s} eps={eps:5.1f} guess={kind:12s} cycles={r['scf_cycles']:3d} "
+                  f"products={r['response_products']} vectors={r['response_vectors']} "
+                  f"{r['time_s']:6.1f} s", flush=True)
     df = pd.DataFrame(rows)
-    extra = df[df.eps_static > grid[0]].groupby("start").scf_cycles.mean()
-    for start, c in extra.items():
+    cold = df[df.start == "default"]
+    ref = cold[cold.eps_static > grid[0]].scf_cycles.mean()
+    for start, d in df.groupby("start", sort=False):
+        extra = d if start == "anchored" else d[d.eps_static > grid[0]]
+        c = extra.scf_cycles.mean()
         print(f"mean SCF cycles per extra point, {start}: {c:.2f} "
-              f"({100 * (1 - c / extra['default']):.0f} % fewer than default)")
+              f"({100 * (1 - c / ref):.0f} % fewer than the default guess's {ref:.2f}); "
+              f"response products per point {d.response_products.mean():.2f}")
     out = ROOT / args.tsv
     out.parent.mkdir(parents=True, exist_ok=True)
-    df.to_csv(out, sep="\t", index=False, mode="a", header=not out.exists())
+    if out.exists():  # earlier rows may have fewer columns
+        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
+    df.to_csv(out, sep="\t", index=False)
     print(f"appended to {out}")
 
 

@@ -146,6 +146,7 @@ def sweep_rows(sweep: dict) -> list:
                          "oscillator_strength": s["oscillator_strength"],
                          "scf_cycles": pt["scf_cycles"], "scf_cycles_cold": pt["scf_cycles_cold"],
                          "scf_guess": pt.get("scf_guess"),
+                         "response_products": pt.get("response_products"),
                          "omega_bohr_inv": sweep["omega_bohr_inv"]})
     return rows
 

@@ -90,6 +90,44 @@ def _pair_density(dms):
     return dtril
 
 
+_TILE = 64
+
+
+def unpack_sym(packed, nao, out):
+    """Symmetric matrices (b, nao, nao) from rows packed over μ ≥ ν, written into ``out``.
+
+    Any float dtype, including a float32 block unpacked into float32 or float64 ``out``; PySCF's
+    ``lib.unpack_tril`` serves float64 only (other types go through fancy indexing, 10x slower).
+    The lower triangle is copied row by row, the upper one by tiled transposes.
+    """
+    if packed.dtype == np.float64 and out.dtype == np.float64:
+        return lib.unpack_tril(packed, out=out)
+    off = 0
+    for mu in range(nao):
+        out[:, mu, :mu + 1] = packed[:, off:off + mu + 1]
+        off += mu + 1
+    for m0 in range(0, nao, _TILE):
+        m1 = min(nao, m0 + _TILE)
+        out[:, :m0, m0:m1] = out[:, m0:m1, :m0].transpose(0, 2, 1)
+        r, c = np.triu_indices(m1 - m0, 1)
+        sub = out[:, m0:m1, m0:m1]
+        sub[:, r, c] = sub[:, c, r]
+    return out
+
+
+def pack_sym(full):
+    """Rows (b, n(n+1)/2) packed over μ ≥ ν from symmetric (b, n, n), any float dtype."""
+    if full.dtype == np.float64:
+        return lib.pack_tril(full)
+    n = full.shape[-1]
+    out = np.empty((full.shape[0], n * (n + 1) // 2), dtype=full.dtype)
+    off = 0
+    for mu in range(n):
+        out[:, off:off + mu + 1] = full[:, mu, :mu + 1]
+        off += mu + 1
+    return out
+
+
 def _factor(dm, hermi, mo_coeff=None, mo_occ=None):
     """(U, V) with dm = U Vᵀ, of the lowest rank we can find cheaply."""
     if mo_coeff is not None and mo_occ is not None and hermi == 1:
@@ -114,6 +152,8 @@ class CompactDF(df.DF):
         super().__init__(mol, auxbasis)
         self.storage = np.dtype(storage)
         self.block_mb = block_mb
+        #: precision of the exchange arithmetic; the SCF sets float32 for its early cycles
+        self.k_dtype = np.float64
         self._tensors = {}
         self._metrics = {}
 
@@ -175,8 +215,8 @@ class CompactDF(df.DF):
     def naux(self, omega=0.0):
         return sum(len(c) for c in self.tensor(omega))
 
-    def blocks(self, omega=0.0, rows=None, consume=False):
-        """Yield (p0, p1, float64 packed block) of the fitted tensor, chunk by chunk.
+    def raw_blocks(self, omega=0.0, rows=None, consume=False):
+        """Yield (p0, p1, block) of the fitted tensor as stored (float32 or float64), no copy.
 
         consume: release each stored chunk once yielded (the tensor is gone afterwards).
         """
@@ -189,7 +229,7 @@ class CompactDF(df.DF):
             c = chunks[0]
             for s0 in range(0, len(c), rows):
                 s1 = min(len(c), s0 + rows)
-                yield p0 + s0, p0 + s1, np.asarray(c[s0:s1], dtype=np.float64)
+                yield p0 + s0, p0 + s1, c[s0:s1]
             p0 += len(c)
             if consume:
                 chunks.pop(0)
@@ -197,6 +237,27 @@ class CompactDF(df.DF):
                     self._tensors.pop(key, None)
             else:
                 chunks = chunks[1:]
+
+    def blocks(self, omega=0.0, rows=None, consume=False):
+        """Yield (p0, p1, float64 packed block) of the fitted tensor, chunk by chunk.
+
+        The block is a view of one buffer reused for every block (a fresh 300 MB array per
+        block costs more in page faults than the arithmetic on it): use it before the next.
+        consume: release each stored chunk once yielded (the tensor is gone afterwards).
+        """
+        npair = self.mol.nao * (self.mol.nao + 1) // 2
+        rows = rows or max(1, int(self.block_mb * 1e6 / 8 / npair))
+        rows = min(rows, self.naux(omega))
+        buf = None
+        for p0, p1, raw in self.raw_blocks(omega, rows, consume):
+            if raw.dtype == np.float64:
+                yield p0, p1, raw
+                continue
+            if buf is None:
+                buf = np.empty((rows, npair))
+            out = buf[:p1 - p0]
+            np.copyto(out, raw)
+            yield p0, p1, out
 
     def get_jk(self, dm, hermi=1, with_j=True, with_k=True, direct_scf_tol=None, omega=None):
         with _blas():
@@ -222,32 +283,55 @@ class CompactDF(df.DF):
             mo_coeff = mo_occ = [None] * nset
         vj = np.zeros_like(dms) if with_j else None
         vk = np.zeros_like(dms) if with_k else None
+        npair = nao * (nao + 1) // 2
         if with_j:
             dtril = _pair_density(dms)
-            jtril = np.zeros((nset, nao * (nao + 1) // 2))
-        factors = ([_factor(dms[k], hermi, mo_coeff[k], mo_occ[k]) for k in range(nset)]
-                   if with_k else [])
+            jtril = np.zeros((nset, npair))
+        cdt = np.dtype(self.k_dtype) if with_k else np.dtype(np.float64)
+        factors = []
+        for k in range(nset) if with_k else ():
+            u, v = _factor(dms[k], hermi, mo_coeff[k], mo_occ[k])
+            u32 = u.astype(cdt)
+            factors.append((u32, u32 if v is u else v.astype(cdt)))
         rank = max((u.shape[1] for u, _ in factors), default=1)
-        rows = max(1, int(self.block_mb * 1e6 / 8 / (nao * nao + 2 * nao * rank)))
-        for p0, p1, blk in self.blocks(omega or 0.0, rows):
+        per_row = (8 * npair if with_j else 0) + cdt.itemsize * (nao * nao + 4 * nao * rank)
+        rows = max(1, min(int(self.block_mb * 1e6 / per_row), self.naux(omega or 0.0)))
+        # buffers reused by every block: fresh arrays of this size cost more in page faults
+        b64 = np.empty((rows, npair)) if with_j else None
+        if with_k:
+            full = np.empty((rows, nao, nao), dtype=cdt)
+            xa, xb = (np.empty(rows * nao * rank, dtype=cdt) for _ in range(2))
+            ya, yb = (np.empty(rows * nao * rank, dtype=cdt) for _ in range(2))
+        for p0, p1, raw in self.raw_blocks(omega or 0.0, rows):
+            nb = p1 - p0
             if with_j:
+                blk = b64[:nb]
+                np.copyto(blk, raw)
                 jtril += (dtril @ blk.T) @ blk
-            if with_k:
-                full = lib.unpack_tril(blk)                   # (b, nao, nao)
-                flat = full.reshape(-1, nao)
-                nb = p1 - p0
-                for k, (u, v) in enumerate(factors):
-                    x = (flat @ u).reshape(nb, nao, -1).transpose(1, 0, 2).reshape(nao, -1)
-                    if v is u:
-                        vk[k] += x @ x.T
-                    else:
-                        y = (flat @ v).reshape(nb, nao, -1).transpose(1, 0, 2).reshape(nao, -1)
-                        vk[k] += x @ y.T
+            if not with_k:
+                continue
+            f = unpack_sym(blk if with_j and cdt == np.float64 else raw, nao, full[:nb])
+            flat = f.reshape(-1, nao)
+            for k, (u, v) in enumerate(factors):
+                x = self._half(flat, u, nb, xa, xb)
+                if v is u:
+                    vk[k] += x @ x.T
+                else:
+                    vk[k] += x @ self._half(flat, v, nb, ya, yb).T
         if with_j:
             vj = lib.unpack_tril(jtril, 1).reshape(shape)
         if with_k:
             vk = vk.reshape(shape)
         return vj, vk
+
+    @staticmethod
+    def _half(flat, u, nb, buf, tbuf):
+        """(nao, nb·r) = [L_P u]_μ,(P,i) for the nb unpacked rows in flat, in the buffers."""
+        nao, r = u.shape
+        x = np.dot(flat, u, out=buf[:nb * nao * r].reshape(nb * nao, r))
+        xt = tbuf[:nb * nao * r].reshape(nao, nb, r)
+        np.copyto(xt, x.reshape(nb, nao, r).transpose(1, 0, 2))
+        return xt.reshape(nao, nb * r)
 
 
 class FittedPCM(pcm.PCM):

@@ -238,10 +238,13 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
                      settings.alpha, settings.nstates, h)
             result = excite(rec["elements"], rec["coords_A"], rec["charge"],
                             rec["multiplicity"] - 1, settings, log=log.info,
-                            band_axes=rec["band_axes"] or None)
+                            band_axes=rec["band_axes"] or None, keep_density=True)
             result["cache"] = "computed"
+            dm = result.pop("_dm")
+            result.pop("_xs", None)
             if cached is not None:
                 io.write_json(cached, result)
+                np.save(density_path(cached), np.asarray(dm))
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                   qm_hash=h, dielectric_source=diel["source"],
                   tuning=str(tuning_json) if tuning_json else "fixed")
@@ -318,9 +321,27 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
     return sites, br, vs
 
 
+def density_path(cached_json):
+    """Where the ground-state density of a cached excited-state result is kept (.npy)."""
+    return Path(cached_json).with_suffix(".dm.npy")
+
+
+def sweep_anchor(excite_json, cache_dir, qm: dict):
+    """(1/ε, density) of the pigment's own excited-state calculation, a point on the sweep's
+    curve when that calculation used the same functional family (static screening, so the
+    ground state depends on ε_static alone), or None (not cached, or screened by ε_optical)."""
+    if not excite_json or not cache_dir or qm.get("screen", "static") != "static":
+        return None
+    res = io.read_json(excite_json)
+    path = density_path(Path(cache_dir) / f"{res.get('qm_hash')}.json")
+    if not path.exists():
+        return None
+    return 1.0 / float(res["eps_static"]), np.load(path)
+
+
 def sweep_guess(dms, xs, eps, extrapolate=True):
     """(kind, density) to start the SCF at ε from earlier points' densities dms at xs = 1/ε."""
-    if extrapolate and len(dms) >= 2:
+    if extrapolate and len(dms) >= 2 and abs(xs[-1] - xs[-2]) > 1e-9:
         f = (1.0 / eps - xs[-1]) / (xs[-1] - xs[-2])
         return "extrapolated", dms[-1] + f * (dms[-1] - dms[-2])
     if dms:
@@ -329,19 +350,27 @@ def sweep_guess(dms, xs, eps, extrapolate=True):
 
 
 def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
-                variant=None, measure_cold_start=False):
+                variant=None, measure_cold_start=False, anchor=None):
     """Excited states of one pigment over a grid of ε_static (uniform: SRSH screening and PCM
     together; ε_optical = min(n², ε_static)). Each point's SCF starts from the previous point's
     density (warm start); from the third point on, from the linear extrapolation of the last two
     densities in 1/ε, the variable in which both the SRSH long-range fraction (1/ε) and the PCM
     screening factor (1 − 1/ε) are linear. measure_cold_start: also converge the second point
     from the default guess (one extra SCF) and record its cycles, to show what the warm start
-    saves."""
+    saves. anchor: (1/ε, density) of the pigment's site calculation (:func:`sweep_anchor`),
+    which then serves as the point before the first, so every point starts warm. The response
+    of each point starts from the previous point's amplitudes."""
     from .engine import build_molecule, make_scf, run_scf
     from .settings import qm_settings
     rec = io.read_json(model_json)
     omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
     points, dms, xs = [], [], []
+    if anchor is not None:
+        xs.append(float(anchor[0]))
+        dms.append(np.asarray(anchor[1]))
+        log.info("%s: sweep anchored on the site calculation at eps=%.3f", rec["pigment_id"],
+                 1.0 / xs[0])
+    amplitudes = None
     t0 = time.perf_counter()
     for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
         s = qm_settings(qm, eps, min(n2, eps), omega, rec.get("nstates_default"))
@@ -349,7 +378,8 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
         guess, dm = sweep_guess(dms, xs, eps)
         res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
-                     keep_density=True)
+                     keep_density=True, x0=amplitudes)
+        amplitudes = res.pop("_xs", None)
         cold = None
         if k == 1 and measure_cold_start:
             mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
@@ -360,7 +390,9 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
         del dms[:-2], xs[:-2]  # the guess needs the last two points only
         points.append({"eps_static": eps, "eps_optical": min(n2, eps),
                        "scf_cycles": res["scf_cycles"], "scf_cycles_cold": cold,
-                       "warm_start": k > 0, "scf_guess": guess,
+                       "warm_start": guess != "default", "scf_guess": guess,
+                       "response_products": res["response"]["products"],
+                       "response_warm_start": res["response"]["warm_start"],
                        "time_s": round(time.perf_counter() - t, 2),
                        "states": res["states"]})
         log.info("%s eps=%.2f: %s (SCF %d cycles%s)", rec["pigment_id"], eps,

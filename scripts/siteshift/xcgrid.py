@@ -39,12 +39,19 @@ def density_factor(dm, mo_coeff=None, mo_occ=None):
 #: 16 k-point block of the bacteriochlorophyll model, φᵀφ in 0.64 s before and 0.10 s after
 #: flushing). 1e-50 keeps every product of up to six flushed factors in the normal range.
 TINY = 1e-50
-_EXP_MASK = np.uint64(0x7FF0000000000000)
-_TINY_BITS = np.array(TINY).view(np.uint64) & _EXP_MASK
+#: The float32 counterpart (normal range down to 1.2e-38): values below 1e-15 are dropped, so a
+#: product of two kept values stays normal. Relative to the O(1) orbital values, far below float32
+#: resolution (6e-8).
+TINY32 = 1e-15
+_FLUSH = {}
+for _dt, _ut, _mask, _tiny in ((np.float64, np.uint64, 0x7FF0000000000000, TINY),
+                               (np.float32, np.uint32, 0x7F800000, TINY32)):
+    _m = _ut(_mask)
+    _FLUSH[np.dtype(_dt)] = (_ut, _m, np.array(_tiny, dtype=_dt).view(_ut) & _m)
 
 
 def flush_tiny(a):
-    """Zero the entries of a with |a| < TINY in place (removes subnormal numbers).
+    """Zero the entries of a with |a| < TINY (float64) or TINY32 (float32) in place.
 
     Compares the IEEE exponent bits as integers: a floating-point comparison on subnormal
     inputs is itself slow (5.8 s for two blocks of that model against 0.3 s here).
@@ -52,11 +59,12 @@ def flush_tiny(a):
     flat = a.ravel(order="K")
     if not np.shares_memory(flat, a):
         raise ValueError("flush_tiny needs an array contiguous in some axis order")
-    bits = flat.view(np.uint64)
+    ut, mask, tiny_bits = _FLUSH[flat.dtype]
+    bits = flat.view(ut)
     step = 1 << 18
     for i in range(0, flat.size, step):
         b = bits[i:i + step]
-        flat[i:i + step][(b & _EXP_MASK) < _TINY_BITS] = 0.0
+        flat[i:i + step][(b & mask) < tiny_bits] = 0.0
     return a
 
 
@@ -81,6 +89,29 @@ def active_aos(mask, ao_loc):
         else np.zeros(0, dtype=int)
 
 
+#: Grid block size (MB of AO values and gradients) for the dense routes. Blocks of a few
+#: thousand points are compact in space, so PySCF's shell screening leaves a fraction of the
+#: basis functions active (measured on the bacteriochlorophyll model, grid 1: see the README);
+#: PySCF would size blocks from max_memory, tens of thousands of points with nearly every
+#: function active.
+BLOCK_MB = 200
+
+
+def screened_blocks(ni, mol, grids, max_memory=BLOCK_MB):
+    """Yield (p0, p1, ao, idx, weight): AO values and gradients (4, ng, n_active) of the shells
+    that survive screening in each grid block (idx: their AO indices, None for all)."""
+    ao_loc = mol.ao_loc_nr()
+    p0 = 0
+    for ao, mask, weight, _coords in ni.block_loop(mol, grids, mol.nao, 1,
+                                                   max_memory=min(max_memory, BLOCK_MB)):
+        p1 = p0 + weight.size
+        idx = active_aos(mask, ao_loc)
+        if idx is not None:
+            ao = ao[:, :, idx]
+        yield p0, p1, flush_tiny(ao), idx, weight
+        p0 = p1
+
+
 class DenseNumInt(numint.NumInt):
     """PySCF NumInt with a dense-BLAS closed-shell LDA/GGA energy and potential (``nr_rks``)."""
 
@@ -98,20 +129,12 @@ class DenseNumInt(numint.NumInt):
         dm = np.asarray(dms)  # dms may carry mo_coeff/mo_occ tags, dm is the plain array
         c, sign = density_factor(dm, getattr(dms, "mo_coeff", None), getattr(dms, "mo_occ", None))
         nao = mol.nao
-        ao_loc = mol.ao_loc_nr()
         vmat = np.zeros((nao, nao))
         nelec = excsum = 0.0
-        for ao, mask, weight, _coords in self.block_loop(mol, grids, nao, 1,
-                                                         max_memory=max_memory):
-            flush_tiny(ao)
-            idx = active_aos(mask, ao_loc)
-            if idx is not None:
-                if len(idx) == 0:
-                    continue
-                ao = ao[:, :, idx]
-                ci = c[idx]
-            else:
-                ci = c
+        for _p0, _p1, ao, idx, weight in screened_blocks(self, mol, grids, max_memory):
+            if idx is not None and len(idx) == 0:
+                continue
+            ci = c if idx is None else c[idx]
             rho = gga_density(ao, ci, sign)
             exc, vxc = self.eval_xc_eff(xc_code, rho, deriv=1, xctype="GGA")[:2]
             flush_tiny(vxc)
@@ -121,8 +144,9 @@ class DenseNumInt(numint.NumInt):
             wv = weight * vxc
             wv[0] *= 0.5  # V + Vᵀ below
             aow = ao[0] * wv[0][:, None]
+            tmp = np.empty_like(aow)
             for k in range(1, 4):
-                aow += ao[k] * wv[k][:, None]
+                aow += np.multiply(ao[k], wv[k][:, None], out=tmp)
             v = ao[0].T @ flush_tiny(aow)
             if idx is None:
                 vmat += v
@@ -158,7 +182,8 @@ class MOKernel:
                             np.float32 if need_mb / 2 <= cache_mb else None)
         self.cached = self.cache_dtype is not None
         self.cache_mb = need_mb if self.cache_dtype is np.float64 else need_mb / 2
-        self._cache = ([(p0, p1, o.astype(self.cache_dtype), v.astype(self.cache_dtype))
+        self._cache = ([(p0, p1, flush_tiny(o.astype(self.cache_dtype)),
+                         flush_tiny(v.astype(self.cache_dtype)))
                         for p0, p1, o, v in self._orbital_blocks()] if self.cached else None)
 
     def _kernel(self, mf, grids):
@@ -169,55 +194,67 @@ class MOKernel:
         rho = np.empty((4, grids.weights.size))
         p0 = 0
         with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
-            for ao, _m, weight, _c in self.ni.block_loop(self.mol, grids, self.mol.nao, 1,
-                                                         max_memory=self.max_memory_mb):
-                flush_tiny(ao)
-                p1 = p0 + weight.size
-                rho[:, p0:p1] = gga_density(ao, c, sign)
-                p0 = p1
+            for p0, p1, ao, idx, _w in screened_blocks(self.ni, self.mol, grids,
+                                                       self.max_memory_mb):
+                if idx is not None and len(idx) == 0:
+                    rho[:, p0:p1] = 0.0
+                    continue
+                rho[:, p0:p1] = gga_density(ao, c if idx is None else c[idx], sign)
         return self.ni.eval_xc_eff(self.xc, rho, deriv=2, xctype="GGA")[2]
 
     def _orbital_blocks(self, sub=4096):
         """(p0, p1, φ_o, φ_v) on contiguous sub-blocks of at most ``sub`` grid points."""
-        nao = self.mol.nao
-        p0 = 0
-        for ao, _mask, weight, _coords in self.ni.block_loop(self.mol, self.grids, nao, 1,
-                                                             max_memory=self.max_memory_mb):
-            flush_tiny(ao)
-            phio = flush_tiny(np.stack([ao[k] @ self.orbo for k in range(4)]))
-            phiv = flush_tiny(np.stack([ao[k] @ self.orbv for k in range(4)]))
-            for q0 in range(0, weight.size, sub):
-                q1 = min(weight.size, q0 + sub)
+        no, nv = self.orbo.shape[1], self.orbv.shape[1]
+        for p0, p1, ao, idx, _w in screened_blocks(self.ni, self.mol, self.grids,
+                                                   self.max_memory_mb):
+            ng = p1 - p0
+            if idx is not None and len(idx) == 0:
+                phio, phiv = np.zeros((4, ng, no)), np.zeros((4, ng, nv))
+            else:
+                o = self.orbo if idx is None else self.orbo[idx]
+                v = self.orbv if idx is None else self.orbv[idx]
+                phio = flush_tiny(np.stack([ao[k] @ o for k in range(4)]))
+                phiv = flush_tiny(np.stack([ao[k] @ v for k in range(4)]))
+            for q0 in range(0, ng, sub):
+                q1 = min(ng, q0 + sub)
                 yield (p0 + q0, p0 + q1, np.ascontiguousarray(phio[:, q0:q1]),
                        np.ascontiguousarray(phiv[:, q0:q1]))
-            p0 += weight.size
 
     def __call__(self, xs):
         with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
             return self._apply(np.asarray(xs))
 
     def _apply(self, xs):
+        """The kernel in the cache precision: float64 when the orbital values are cached in
+        float64 or recomputed, float32 when they are cached in float32 (the grid sums are then
+        float32 per 4096-point block and accumulated in float64)."""
         nx, no, nv = xs.shape
+        cdt = np.dtype(self.cache_dtype or np.float64)
         out = np.zeros((nx * no, nv))
         blocks = self._cache if self.cached else self._orbital_blocks()
-        xt = (2.0 * xs).transpose(2, 0, 1).reshape(nv, nx * no)      # (v, x·o)
+        xt = (2.0 * xs).transpose(2, 0, 1).reshape(nv, nx * no).astype(cdt)    # (v, x·o)
+        buf = None
         for p0, p1, phio, phiv in blocks:
-            phio = np.asarray(phio, dtype=np.float64)
-            phiv = np.asarray(phiv, dtype=np.float64)
             ng = p1 - p0
+            size = 4 * ng * nx * no
+            if buf is None or buf[0].size < size:  # reused: fresh arrays cost page faults
+                buf = (np.empty(size, cdt), np.empty(size, cdt))
             # t^k_g,xi = Σ_a X_ia ∇^k φ_a(g)
-            t = (phiv.reshape(4 * ng, nv) @ xt).reshape(4, ng, nx, no)
+            t = np.dot(phiv.reshape(4 * ng, nv), xt,
+                       out=buf[0][:size].reshape(4 * ng, nx * no)).reshape(4, ng, nx, no)
+            flush_tiny(t)
             rho1 = np.empty((4, ng, nx))
             rho1[0] = np.einsum("gxi,gi->gx", t[0], phio[0])
             for k in range(1, 4):
                 rho1[k] = (np.einsum("gxi,gi->gx", t[0], phio[k])
                            + np.einsum("gxi,gi->gx", t[k], phio[0]))
-            u = flush_tiny(np.einsum("kgx,klg->lgx", rho1, self.wfxc[:, :, p0:p1]))
+            u = flush_tiny(flush_tiny(np.einsum("kgx,klg->lgx", rho1, self.wfxc[:, :, p0:p1]))
+                           .astype(cdt))
             # V_ia = Σ_g (u0 φ_i + u_k ∇_kφ_i) φ_a + Σ_k (u_k φ_i) ∇_kφ_a: one matrix product
-            g = np.empty((4, ng, nx, no))
-            g[0] = u[0][:, :, None] * phio[0][:, None, :]
+            g = buf[1][:size].reshape(4, ng, nx, no)
+            np.multiply(u[0][:, :, None], phio[0][:, None, :], out=g[0])
             for k in range(1, 4):
                 g[0] += u[k][:, :, None] * phio[k][:, None, :]
-                g[k] = u[k][:, :, None] * phio[0][:, None, :]
+                np.multiply(u[k][:, :, None], phio[0][:, None, :], out=g[k])
             out += flush_tiny(g).reshape(4 * ng, nx * no).T @ phiv.reshape(4 * ng, nv)
         return out.reshape(nx, no, nv)
