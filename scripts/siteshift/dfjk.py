@@ -115,12 +115,14 @@ def unpack_sym(packed, nao, out):
     return out
 
 
-def pack_sym(full):
+def pack_sym(full, out=None):
     """Rows (b, n(n+1)/2) packed over μ ≥ ν from symmetric (b, n, n), any float dtype."""
-    if full.dtype == np.float64:
-        return lib.pack_tril(full)
     n = full.shape[-1]
-    out = np.empty((full.shape[0], n * (n + 1) // 2), dtype=full.dtype)
+    if out is None:
+        out = np.empty((full.shape[0], n * (n + 1) // 2), dtype=full.dtype)
+    if full.dtype == np.float64 and out.dtype == np.float64:
+        out[:] = lib.pack_tril(full)
+        return out
     off = 0
     for mu in range(n):
         out[:, off:off + mu + 1] = full[:, mu, :mu + 1]
@@ -156,10 +158,12 @@ class CompactDF(df.DF):
         self.k_dtype = np.float64
         self._tensors = {}
         self._metrics = {}
+        self._last_rho = None
 
     def reset(self, mol=None):
         self._tensors = {}
         self._metrics = {}
+        self._last_rho = None
         return super().reset(mol)
 
     def build(self):
@@ -190,7 +194,15 @@ class CompactDF(df.DF):
         return fac @ x
 
     def fit_density(self, dms):
-        """ρ_P = Σ_μν L_P,μν D_μν for each density (nset, naux); the D are symmetrised."""
+        """ρ_P = Σ_μν L_P,μν D_μν for each density (nset, naux); the D are symmetrised.
+
+        Reuses the ρ of the last Coulomb build when it was for the same densities (the PCM
+        asks for the density that J has just been built from: one pass over the tensor less)."""
+        last = self._last_rho
+        d = np.asarray(dms, dtype=np.float64)
+        d = d.reshape(-1, d.shape[-1], d.shape[-1])
+        if last is not None and last[0].shape == d.shape and np.array_equal(last[0], d):
+            return last[1].copy()
         dtril = _pair_density(dms)
         out = np.empty((len(dtril), self.naux()))
         for p0, p1, blk in self.blocks(0.0):
@@ -291,8 +303,8 @@ class CompactDF(df.DF):
         factors = []
         for k in range(nset) if with_k else ():
             u, v = _factor(dms[k], hermi, mo_coeff[k], mo_occ[k])
-            u32 = u.astype(cdt)
-            factors.append((u32, u32 if v is u else v.astype(cdt)))
+            uc = u.astype(cdt)
+            factors.append((uc, uc if v is u else v.astype(cdt)))
         rank = max((u.shape[1] for u, _ in factors), default=1)
         per_row = (8 * npair if with_j else 0) + cdt.itemsize * (nao * nao + 4 * nao * rank)
         rows = max(1, min(int(self.block_mb * 1e6 / per_row), self.naux(omega or 0.0)))
@@ -301,13 +313,16 @@ class CompactDF(df.DF):
         if with_k:
             full = np.empty((rows, nao, nao), dtype=cdt)
             xa, xb = (np.empty(rows * nao * rank, dtype=cdt) for _ in range(2))
-            ya, yb = (np.empty(rows * nao * rank, dtype=cdt) for _ in range(2))
+            if any(v is not u for u, v in factors):
+                ya, yb = (np.empty(rows * nao * rank, dtype=cdt) for _ in range(2))
+        rho = np.empty((nset, self.naux(omega or 0.0))) if with_j else None
         for p0, p1, raw in self.raw_blocks(omega or 0.0, rows):
             nb = p1 - p0
             if with_j:
                 blk = b64[:nb]
                 np.copyto(blk, raw)
-                jtril += (dtril @ blk.T) @ blk
+                rho[:, p0:p1] = dtril @ blk.T
+                jtril += rho[:, p0:p1] @ blk
             if not with_k:
                 continue
             f = unpack_sym(blk if with_j and cdt == np.float64 else raw, nao, full[:nb])
@@ -320,6 +335,8 @@ class CompactDF(df.DF):
                     vk[k] += x @ self._half(flat, v, nb, ya, yb).T
         if with_j:
             vj = lib.unpack_tril(jtril, 1).reshape(shape)
+            if not omega:
+                self._last_rho = (dms.copy(), rho)
         if with_k:
             vk = vk.reshape(shape)
         return vj, vk

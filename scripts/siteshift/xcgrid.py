@@ -113,7 +113,13 @@ def screened_blocks(ni, mol, grids, max_memory=BLOCK_MB):
 
 
 class DenseNumInt(numint.NumInt):
-    """PySCF NumInt with a dense-BLAS closed-shell LDA/GGA energy and potential (``nr_rks``)."""
+    """PySCF NumInt with a dense-BLAS closed-shell LDA/GGA energy and potential (``nr_rks``).
+
+    ``dtype`` float32 does the grid arithmetic in float32 (the functional itself is evaluated
+    in float64); the SCF uses it for its early cycles only, like float32 exchange.
+    """
+
+    dtype = np.float64
 
     def nr_rks(self, mol, grids, xc_code, dms, relativity=0, hermi=1, max_memory=2000,
                verbose=None):
@@ -131,11 +137,15 @@ class DenseNumInt(numint.NumInt):
         nao = mol.nao
         vmat = np.zeros((nao, nao))
         nelec = excsum = 0.0
+        cdt = np.dtype(self.dtype)
         for _p0, _p1, ao, idx, weight in screened_blocks(self, mol, grids, max_memory):
             if idx is not None and len(idx) == 0:
                 continue
             ci = c if idx is None else c[idx]
-            rho = gga_density(ao, ci, sign)
+            if cdt != np.float64:
+                ao = flush_tiny(ao.astype(cdt))
+                ci = ci.astype(cdt)
+            rho = gga_density(ao, ci, sign.astype(cdt))
             exc, vxc = self.eval_xc_eff(xc_code, rho, deriv=1, xctype="GGA")[:2]
             flush_tiny(vxc)
             den = rho[0] * weight
@@ -143,6 +153,7 @@ class DenseNumInt(numint.NumInt):
             excsum += den @ exc
             wv = weight * vxc
             wv[0] *= 0.5  # V + Vᵀ below
+            wv = flush_tiny(wv.astype(cdt)) if cdt != np.float64 else wv
             aow = ao[0] * wv[0][:, None]
             tmp = np.empty_like(aow)
             for k in range(1, 4):
