@@ -15,6 +15,9 @@ SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "chain", "band", "state_ind
                 "response", "solvation", "qm_hash"]
 
 
+#: A target curve varying by less than this over the scanned ε is reported as flat.
+FLAT_EV = 1e-5
+
 def site_rows(result: dict) -> list:
     """Rows of one pigment: every named band (Qy, Qx or bright) and the lowest state S1."""
     rows = []
@@ -172,9 +175,11 @@ def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
     eps, vals = curve.index.to_numpy(float), curve.to_numpy(float) - target["value_ev"]
     out.update(eps_min_scanned=float(eps.min()) if len(eps) else None,
                eps_max_scanned=float(eps.max()) if len(eps) else None)
-    if len(vals) > 1 and np.ptp(vals) < 1e-6:
+    # flat: within what the SCF and Davidson tolerances resolve (points converged from different
+    # starting densities agree to ~1e-6 eV, not to round-off)
+    if len(vals) > 1 and np.ptp(vals) < FLAT_EV:
         out.update(eps_static=None, bracket_low=None, bracket_high=None,
-                   status="computed value does not depend on ε (flat within 1e-6 eV)")
+                   status=f"computed value does not depend on ε (flat within {FLAT_EV:g} eV)")
         return out
     for k in range(len(eps) - 1):
         if vals[k] == 0 or vals[k] * vals[k + 1] < 0:
