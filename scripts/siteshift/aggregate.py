@@ -15,8 +15,11 @@ SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "chain", "band", "state_ind
                 "response", "solvation", "qm_hash"]
 
 
-#: A target curve varying by less than this over the scanned ε is reported as flat.
-FLAT_EV = 1e-5
+#: A target curve varying by less than this over the scanned ε is reported as flat: SCF runs
+#: converged to the default tolerances from different starting densities give excitation
+#: energies that differ by up to ~3e-5 eV (measured on the demo pigment's two mirror-image
+#: copies, whose ε sweeps start from different site densities).
+FLAT_EV = 1e-4
 
 def site_rows(result: dict) -> list:
     """Rows of one pigment: every named band (Qy, Qx or bright) and the lowest state S1."""
@@ -175,8 +178,7 @@ def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
     eps, vals = curve.index.to_numpy(float), curve.to_numpy(float) - target["value_ev"]
     out.update(eps_min_scanned=float(eps.min()) if len(eps) else None,
                eps_max_scanned=float(eps.max()) if len(eps) else None)
-    # flat: within what the SCF and Davidson tolerances resolve (points converged from different
-    # starting densities agree to ~1e-6 eV, not to round-off)
+    # flat: within what the SCF and Davidson tolerances resolve (see FLAT_EV)
     if len(vals) > 1 and np.ptp(vals) < FLAT_EV:
         out.update(eps_static=None, bracket_low=None, bracket_high=None,
                    status=f"computed value does not depend on ε (flat within {FLAT_EV:g} eV)")
