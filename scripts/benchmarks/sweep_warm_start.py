@@ -4,7 +4,8 @@
 Starts: default (PySCF's guess, cold response), previous (the previous point's density),
 extrapolated (linear extrapolation of the last two densities in 1/ε, siteshift.study.sweep_guess),
 anchored (as the sweep stage runs by default: the site calculation's density at --site-eps is the
-point before the first one, and each response starts from the previous point's amplitudes).
+point before the first one; here each response also starts from the previous point's amplitudes,
+which the sweep stage does not do since this benchmark measured more products for it).
 
     python scripts/benchmarks/sweep_warm_start.py [--system hc4] [--basis 6-31g] [--grid-level 1]
 
