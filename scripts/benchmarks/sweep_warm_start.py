@@ -65,7 +65,7 @@ def main():
                         sweep_guess(dms, xs, eps, extrapolate=start != "previous"))
             t = time.perf_counter()
             res = excite(el, xyz, settings=settings(eps), dm0=dm, keep_density=True,
-                         x0=amps if start == "anchored" else None)
+                         x0=amps if start == "anchored" else None, keep_amplitudes=True)
             dms.append(np.asarray(res.pop("_dm")))
             xs.append(1.0 / eps)
             del dms[:-2], xs[:-2]

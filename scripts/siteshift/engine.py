@@ -274,15 +274,15 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         solver.max_cycle = max_cycle
         cycles = []
         solver.callback = lambda env: cycles.append(env.get("cycle"))
-        precision = _EarlyCycles(solver) if mixed_precision and attrs is not None else None
+        early = _EarlyCycles(solver) if mixed_precision and attrs is not None else None
         try:
             solver.kernel(dm0=dm)
         finally:
-            if precision is not None:
-                precision.restore()
+            if early is not None:
+                early.restore()
         tried.append(name)
         if log:
-            mixed = precision.describe() if precision is not None else ""
+            mixed = early.describe() if early is not None else ""
             log(f"SCF step '{name}': converged={solver.converged} E={solver.e_tot:.10f} Eh "
                 f"after {len(cycles)} cycles{mixed}")
         if solver.converged:
@@ -430,11 +430,12 @@ class FastTDA:
                                 for p0, p1 in lib.prange(0, cderi.shape[0], blk))
 
     def _mo_tensors(self, mol, omega=None, with_ov=True):
-        """B_ov, B_oo (float64) and packed B_vv (storage precision) for one operator.
+        """B_ov (float64), B_oo and packed B_vv (storage precision) for one operator.
 
-        B_vv enters only the exchange term, so with float32 storage its transformation is done
-        in float32 arithmetic as well (2x faster; its rounding, relative 1e-6, is below what
-        the Davidson tolerance resolves). B_ov (Coulomb and PCM) and B_oo stay float64.
+        B_oo and B_vv enter only the exchange term, so with float32 storage the (vv)
+        transformation is done in float32 arithmetic as well (2x faster; its rounding, relative
+        1e-6, is below what the Davidson tolerance resolves). B_ov (Coulomb and PCM) stays
+        float64.
         """
         store = np.dtype(np.float32 if self.settings.df_storage == "float32" else np.float64)
         o, v = self.orbo, self.orbv
@@ -443,7 +444,7 @@ class FastTDA:
         naux, blocks = self._ao_blocks(mol, omega)
         # filled in place: a list of pieces joined at the end would hold both for a moment
         Bov = np.empty((naux, no, nv)) if with_ov else None
-        Boo = np.empty((naux, no, no))
+        Boo = np.empty((naux, no, no), store)         # exchange only, like B_vv
         Bvv = np.empty((naux, nv * (nv + 1) // 2), store)
         buf = None
         for p0, p1, blk in blocks:
@@ -458,7 +459,7 @@ class FastTDA:
             half_o = (ao.reshape(-1, nao) @ o).reshape(nb, nao, no).transpose(0, 2, 1)
             if with_ov:
                 np.matmul(half_o, v, out=Bov[p0:p1])
-            np.matmul(half_o, o, out=Boo[p0:p1])
+            Boo[p0:p1] = half_o @ o
             aos = ao
             if buf["aos"] is not None:
                 aos = buf["aos"][:nb]
@@ -516,7 +517,7 @@ class FastTDA:
         for p0, p1 in lib.prange(0, Boo.shape[0], rows):
             nb = p1 - p0
             vv = unpack_sym(Bvv[p0:p1], nv, vvb[:nb])
-            y = np.matmul(Boo[p0:p1, None].astype(cdt), xs_c[None], out=yb[:nb])
+            y = np.matmul(Boo[p0:p1, None], xs_c[None], out=yb[:nb])
             prod = np.matmul(y.reshape(nb, nx * no, nv), vv, out=pb[:nb])
             acc += prod.sum(axis=0, dtype=np.float64)
         return acc.reshape(nx, no, nv)
@@ -672,7 +673,7 @@ def _orb_label(k, homo):
 
 def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
            log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False,
-           x0=None):
+           x0=None, keep_amplitudes=False):
     """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
 
     band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
@@ -760,8 +761,8 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
     }
     if keep_density:
         result["_dm"] = mf.make_rdm1()
-        if "xs" in stats:
-            result["_xs"] = stats["xs"]
+    if keep_amplitudes and "xs" in stats:
+        result["_xs"] = stats["xs"]
     return result
 
 

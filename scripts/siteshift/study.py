@@ -241,7 +241,6 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
                             band_axes=rec["band_axes"] or None, keep_density=True)
             result["cache"] = "computed"
             dm = result.pop("_dm")
-            result.pop("_xs", None)
             if cached is not None:
                 io.write_json(cached, result)
                 np.save(density_path(cached), np.asarray(dm))
@@ -379,7 +378,6 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
         res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
                      keep_density=True)
-        res.pop("_xs", None)
         cold = None
         if k == 1 and measure_cold_start:
             mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
