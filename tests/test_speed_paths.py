@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from pyscf import df, dft, gto, lib, scf
 
-from siteshift.dfjk import CompactDF, FittedPCM, pack_sym, unpack_sym
+from siteshift.dfjk import CompactDF, FittedPCM, pack_sym, significant_pairs, unpack_sym
 from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule, fast_response,
                               make_scf, run_scf)
 from siteshift.functional import SRSH
@@ -44,6 +44,40 @@ def test_compact_df_equals_pyscf_df(meoh, storage, tol, omega):
         assert np.max(np.abs(k1 - k0)) <= t * max(1.0, np.max(np.abs(k0)))
 
 
+# two waters 12 Å apart (O–H 0.96 Å, H–O–H 104.5°: common practice values, from memory)
+WATER_PAIR = ("O 0 0 0; H 0.757 0.586 0; H -0.757 0.586 0; "
+              "O 0 0 12; H 0.757 0.586 12; H -0.757 0.586 12")
+
+
+@pytest.mark.parametrize("omega", [None, 0.3])
+def test_screened_pairs_leave_pyscf_jk_unchanged(omega):
+    # Reference: PySCF's df.DF.get_jk with every AO pair. Pairs across the 12 Å gap have
+    # Schwarz bounds far below 1e-12 and are left out of the tensors (the 60 k-pair BCL model
+    # keeps 52 %); J and K must not move beyond float64 round-off.
+    mol = gto.M(atom=WATER_PAIR, basis="def2-svp", verbose=0)
+    keep = significant_pairs(mol)
+    half = mol.nao // 2
+    rows, cols = np.tril_indices(mol.nao)
+    cross = (rows >= half) & (cols < half)
+    assert keep.mean() < 0.8 and not keep[cross].all() and keep[~cross].all()
+    assert significant_pairs(mol, 0).all()
+    ref = df.DF(mol).build()
+    mine = CompactDF(mol, storage="float64")
+    assert mine.pair_fraction is None
+    dm = scf.RHF(mol).run().make_rdm1()
+    j0, k0 = ref.get_jk(dm, omega=omega)
+    j1, k1 = mine.get_jk(dm, omega=omega)
+    assert mine.pair_fraction == pytest.approx(keep.mean())
+    t = 1e-7 if omega else 1e-9  # PySCF conditions the long-range metric differently (above)
+    assert np.max(np.abs(j1 - j0)) < t and np.max(np.abs(k1 - k0)) < t
+    # and against the same tensors with every pair kept: the screening alone
+    j2, k2 = CompactDF(mol, storage="float64", pair_tol=0).get_jk(dm, omega=omega)
+    assert np.max(np.abs(j1 - j2)) < 1e-10 and np.max(np.abs(k1 - k2)) < 1e-10
+    # the dropped columns of the stored tensor are exactly zero
+    stored = np.concatenate(mine.tensor(omega or 0.0), axis=0)
+    assert not stored[:, ~keep].any() and stored[:, keep].any()
+
+
 def test_dense_xc_equals_pyscf_numint(meoh):
     # Reference: PySCF's NumInt.nr_rks for the SRSH GGA part, tagged and untagged densities.
     grids = dft.gen_grid.Grids(meoh)
@@ -56,6 +90,38 @@ def test_dense_xc_equals_pyscf_numint(meoh):
         n1, e1, v1 = DenseNumInt().nr_rks(meoh, grids, xc, dm)
         assert abs(n1 - n0) < 1e-10 and abs(e1 - e0) < 1e-10
         assert np.max(np.abs(v1 - v0)) < 1e-10
+
+
+def test_float32_ao_values_kept_between_calls(meoh):
+    # Reference: the same float32 integration recomputing AO values (and PySCF's float64
+    # NumInt.nr_rks at float32 resolution). The kept values must be reused, give the same
+    # potential, and not be kept when they exceed the budget.
+    grids = dft.gen_grid.Grids(meoh)
+    grids.level = 1
+    grids.build()
+    xc = SRSH(0.2, 0.25, 4.0).xc
+    dm = dft.RKS(meoh, xc="PBE").run().make_rdm1()
+    _, e_ref, v_ref = dft.numint.NumInt().nr_rks(meoh, grids, xc, dm)
+    plain = DenseNumInt()
+    plain.dtype = np.float32
+    _, e0, v0 = plain.nr_rks(meoh, grids, xc, dm)
+    kept = DenseNumInt()
+    kept.dtype, kept.cache_mb = np.float32, 1000
+    first = kept.nr_rks(meoh, grids, xc, dm)
+    assert kept.cached_mb > 0
+    cache = kept._ao_cache
+    _, e1, v1 = kept.nr_rks(meoh, grids, xc, dm)
+    assert kept._ao_cache is cache  # reused, not rebuilt
+    assert np.array_equal(first[2], v1) and np.array_equal(v1, v0) and e1 == e0
+    assert abs(e1 - e_ref) < 1e-5 and np.max(np.abs(v1 - v_ref)) < 1e-5
+    small = DenseNumInt()
+    small.dtype, small.cache_mb = np.float32, kept.cached_mb / 2
+    small.nr_rks(meoh, grids, xc, dm)
+    assert small.cached_mb == 0
+    _, e2, v2 = small.nr_rks(meoh, grids, xc, dm)
+    assert np.array_equal(v2, v0)
+    kept.drop_cache()
+    assert kept.cached_mb == 0
 
 
 def test_flush_tiny_zeroes_only_tiny_values():
@@ -124,6 +190,8 @@ def test_mixed_precision_scf_converges_to_the_float64_state():
     mixed, _, n_mixed = run_scf(make_scf(mol, s), log=lines.append)
     plain, _, n_plain = run_scf(make_scf(mol, s), mixed_precision=False)
     assert "with float32 exchange" in lines[-1] and " 0 with float32" not in lines[-1]
+    assert "float32 AO values kept" in lines[-1]
+    assert mixed._numint.cached_mb == 0 and mixed._numint.dtype == np.float64
     assert abs(mixed.e_tot - plain.e_tot) < 1e-9
     assert np.max(np.abs(mixed.make_rdm1() - plain.make_rdm1())) < 1e-5
     assert mixed.with_df.k_dtype == np.float64 and mixed.check_convergence is None

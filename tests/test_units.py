@@ -70,3 +70,16 @@ def test_sweep_guess_kinds_and_interpolation():
     assert kind == "extrapolated" and abs(dm[0, 0] - d(0.25)[0, 0]) < 1e-12
     kind, dm = sweep_guess([d(0.25), d(0.25)], [0.25, 0.25], 8.0)
     assert kind == "previous"
+    # the two computed points nearest to 1/ε are used, not the last two: here the site (0.12)
+    # and ε 4 (0.25) bracket ε 8 (0.125); a wrong pick would still be linear, so perturb ε 2
+    pts = [d(0.12), d(0.5) + 1.0, d(0.25)]
+    kind, dm = sweep_guess(pts, [0.12, 0.5, 0.25], 8.0)
+    assert kind == "extrapolated" and abs(dm[0, 0] - d(0.125)[0, 0]) < 1e-12
+    assert sweep_guess(pts, [0.12, 0.5, 0.25], 8.0, extrapolate=False)[1] is pts[0]
+
+
+def test_sweep_order_outward_from_the_anchor():
+    from siteshift.study import sweep_order
+    assert sweep_order([16, 2, 8, 4]) == [2.0, 4.0, 8.0, 16.0]
+    # site at ε 8.33 (1/ε 0.12): distances in 1/ε 0.005 (8), 0.0575 (16), 0.13 (4), 0.38 (2)
+    assert sweep_order([2, 4, 8, 16], 1 / 8.33) == [8.0, 16.0, 4.0, 2.0]

@@ -108,12 +108,14 @@ def test_eps_sweep_outputs(study):
     assert set(sw.variant) == {"wt", "A_I6E"}
     s1 = sw[(sw.band == "S1") & (sw.variant == "wt") & (sw.pigment_id == "A_HC4101")]
     assert s1.energy_ev.notna().all() and len(s1) == 2
-    second = sw[sw.eps_static == 8.0].iloc[0]
+    second = sw[sw.computed_as == 2].iloc[0]
     assert second.scf_cycles_cold > 0 and second.scf_cycles <= second.scf_cycles_cold
-    # anchored on the site calculation (sweep.anchor_on_site, default): the first point starts
-    # from the site density, the second from the interpolation in 1/ε
-    assert set(sw[sw.eps_static == 2.0].scf_guess) == {"previous"}
-    assert set(sw[sw.eps_static == 8.0].scf_guess) == {"extrapolated"}
+    # anchored on the site calculation (sweep.anchor_on_site, default): the point nearest to
+    # the site's ε (in 1/ε) is computed first, from the site density; the other from the line
+    # through the site and that point
+    assert set(sw.computed_as) == {1, 2}
+    assert set(sw[sw.computed_as == 1].scf_guess) == {"previous"}
+    assert set(sw[sw.computed_as == 2].scf_guess) == {"extrapolated"}
     tg = pd.read_csv(study / "results/tables/eps_targets.tsv", sep="\t")
     # the two pockets hold exact two-fold copies of the pigment, and in a uniform continuum
     # nothing else distinguishes them: their splitting cannot depend on ε

@@ -1,11 +1,13 @@
 #!/usr/bin/env python
 """Benchmark: SCF cycles and response products per ε-sweep point for each way of starting it.
 
-Starts: default (PySCF's guess, cold response), previous (the previous point's density),
-extrapolated (linear extrapolation of the last two densities in 1/ε, siteshift.study.sweep_guess),
-anchored (as the sweep stage runs by default: the site calculation's density at --site-eps is the
-point before the first one; here each response also starts from the previous point's amplitudes,
-which the sweep stage does not do since this benchmark measured more products for it).
+Starts: default (PySCF's guess), previous (the previous point's density), extrapolated (the line
+in 1/ε through the two computed densities nearest to the point, siteshift.study.sweep_guess),
+anchored (the site calculation's density at --site-eps is the point before the first one, points
+in ascending ε), outward (anchored, and the points computed nearest to the anchor first,
+siteshift.study.sweep_order: as the sweep stage runs by default). --response-warm also starts each
+response from the previous point's amplitudes in the anchored sweeps (measured: more Davidson
+products, so the sweep stage does not do it).
 
     python scripts/benchmarks/sweep_warm_start.py [--system hc4] [--basis 6-31g] [--grid-level 1]
 
@@ -31,7 +33,7 @@ def main():
     import pandas as pd
     from response_speed import system
     from siteshift.engine import ExciteSettings, configure_threads, excite
-    from siteshift.study import sweep_guess
+    from siteshift.study import sweep_guess, sweep_order
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--system", default="hc4")
@@ -42,13 +44,15 @@ def main():
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--site-eps", type=float, default=8.33,
                     help="ε_static of the site calculation that anchors the 'anchored' sweep")
-    ap.add_argument("--starts", default="default,previous,extrapolated,anchored")
+    ap.add_argument("--starts", default="default,previous,extrapolated,anchored,outward")
+    ap.add_argument("--response-warm", action="store_true")
     ap.add_argument("--tsv", default="benchmarks/sweep_warm_start.tsv")
     args = ap.parse_args()
     configure_threads(args.threads)
     el, xyz = system(args.system)
     grid = sorted(float(e) for e in args.eps.split(","))
     rows = []
+    site = None
 
     def settings(eps):
         return ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=eps,
@@ -56,26 +60,29 @@ def main():
 
     for start in args.starts.split(","):
         dms, xs, amps = [], [], None
-        if start == "anchored":  # the site calculation, not a sweep point
-            site = excite(el, xyz, settings=settings(args.site_eps), keep_density=True)
+        anchored = start in ("anchored", "outward")
+        if anchored:  # the site calculation, not a sweep point
+            if site is None:
+                site = excite(el, xyz, settings=settings(args.site_eps), keep_density=True)
+                print(f"anchor eps={args.site_eps}: {site['scf_cycles']} SCF cycles", flush=True)
             dms, xs = [np.asarray(site["_dm"])], [1.0 / args.site_eps]
-            print(f"anchor eps={args.site_eps}: {site['scf_cycles']} SCF cycles", flush=True)
-        for k, eps in enumerate(grid):
+        order = sweep_order(grid, 1.0 / args.site_eps) if start == "outward" else grid
+        for k, eps in enumerate(order):
             kind, dm = (("default", None) if start == "default" else
                         sweep_guess(dms, xs, eps, extrapolate=start != "previous"))
             t = time.perf_counter()
             res = excite(el, xyz, settings=settings(eps), dm0=dm, keep_density=True,
-                         x0=amps if start == "anchored" else None, keep_amplitudes=True)
+                         x0=amps if anchored and args.response_warm else None,
+                         keep_amplitudes=True)
             dms.append(np.asarray(res.pop("_dm")))
             xs.append(1.0 / eps)
-            del dms[:-2], xs[:-2]
             amps = res.pop("_xs", None)
             rows.append({"system": args.system, "basis": args.basis, "start": start,
                          "eps_static": eps, "guess": kind, "scf_cycles": res["scf_cycles"],
                          "response_products": res["response"]["products"],
                          "response_vectors": res["response"]["trial_vectors"],
                          "response_warm_start": res["response"]["warm_start"],
-                         "site_eps": args.site_eps if start == "anchored" else None,
+                         "site_eps": args.site_eps if anchored else None, "computed_as": k + 1,
                          "time_s": round(time.perf_counter() - t, 2),
                          "energy": res["scf_energy_hartree"],
                          "s1_ev": res["states"][0]["energy_ev"],
@@ -88,7 +95,7 @@ def main():
     cold = df[df.start == "default"]
     ref = cold[cold.eps_static > grid[0]].scf_cycles.mean()
     for start, d in df.groupby("start", sort=False):
-        extra = d if start == "anchored" else d[d.eps_static > grid[0]]
+        extra = d if start in ("anchored", "outward") else d[d.eps_static > grid[0]]
         c = extra.scf_cycles.mean()
         print(f"mean SCF cycles per extra point, {start}: {c:.2f} "
               f"({100 * (1 - c / ref):.0f} % fewer than the default guess's {ref:.2f}); "

@@ -151,7 +151,7 @@ def sweep_rows(sweep: dict) -> list:
                          "energy_ev": s["energy_ev"], "wavelength_nm": s["wavelength_nm"],
                          "oscillator_strength": s["oscillator_strength"],
                          "scf_cycles": pt["scf_cycles"], "scf_cycles_cold": pt["scf_cycles_cold"],
-                         "scf_guess": pt.get("scf_guess"),
+                         "scf_guess": pt.get("scf_guess"), "computed_as": pt.get("computed_as"),
                          "response_products": pt.get("response_products"),
                          "omega_bohr_inv": sweep["omega_bohr_inv"]})
     return rows

@@ -120,6 +120,46 @@ class DenseNumInt(numint.NumInt):
     """
 
     dtype = np.float64
+    #: MB that float32 AO values may occupy when kept between calls (0: never kept). The SCF
+    #: sets it for its float32 cycles and clears the cache when it goes back to float64.
+    cache_mb = 0
+    _ao_cache = None
+    _ao_cache_key = None
+
+    def drop_cache(self):
+        self._ao_cache = self._ao_cache_key = None
+
+    @property
+    def cached_mb(self):
+        """Size of the kept float32 AO values (MB), 0 when none are kept."""
+        if not self._ao_cache:
+            return 0.0
+        return sum(ao.nbytes for ao, _idx, _w in self._ao_cache) / 1e6
+
+    def _blocks(self, mol, grids, max_memory, cdt):
+        """(ao, idx, weight) per grid block in precision cdt; float32 values come from the
+        cache when it holds this molecule and grid, and are put there when they fit."""
+        key = (id(mol), id(grids.coords), grids.weights.size)
+        if cdt == np.float32 and self._ao_cache is not None and self._ao_cache_key == key:
+            yield from self._ao_cache
+            return
+        keep = cdt == np.float32 and self.cache_mb > 0 and self._ao_cache_key != (key, "full")
+        store, size = [], 0
+        for _p0, _p1, ao, idx, weight in screened_blocks(self, mol, grids, max_memory):
+            if idx is not None and len(idx) == 0:
+                continue
+            if cdt != np.float64:
+                ao = flush_tiny(ao.astype(cdt))
+            if keep:
+                size += ao.nbytes
+                if size > self.cache_mb * 1e6:  # does not fit: not tried again for this grid
+                    keep, store = False, []
+                    self._ao_cache, self._ao_cache_key = None, (key, "full")
+                else:
+                    store.append((ao, idx, weight))
+            yield ao, idx, weight
+        if keep:
+            self._ao_cache, self._ao_cache_key = store, key
 
     def nr_rks(self, mol, grids, xc_code, dms, relativity=0, hermi=1, max_memory=2000,
                verbose=None):
@@ -138,12 +178,9 @@ class DenseNumInt(numint.NumInt):
         vmat = np.zeros((nao, nao))
         nelec = excsum = 0.0
         cdt = np.dtype(self.dtype)
-        for _p0, _p1, ao, idx, weight in screened_blocks(self, mol, grids, max_memory):
-            if idx is not None and len(idx) == 0:
-                continue
+        for ao, idx, weight in self._blocks(mol, grids, max_memory, cdt):
             ci = c if idx is None else c[idx]
             if cdt != np.float64:
-                ao = flush_tiny(ao.astype(cdt))
                 ci = ci.astype(cdt)
             rho = gga_density(ao, ci, sign.astype(cdt))
             exc, vxc = self.eval_xc_eff(xc_code, rho, deriv=1, xctype="GGA")[:2]
