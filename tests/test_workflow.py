@@ -110,12 +110,12 @@ def test_eps_sweep_outputs(study):
     assert s1.energy_ev.notna().all() and len(s1) == 2
     second = sw[sw.computed_as == 2].iloc[0]
     assert second.scf_cycles_cold > 0 and second.scf_cycles <= second.scf_cycles_cold
-    # anchored on the site calculation (sweep.anchor_on_site, default): the point nearest to
-    # the site's ε (in 1/ε) is computed first, from the site density; the other from the line
-    # through the site and that point
+    # anchored on the site calculation (sweep.anchor_on_site, default): the first point (ε 2)
+    # starts from the site density, the second from the line through the site and ε 2
     assert set(sw.computed_as) == {1, 2}
     assert set(sw[sw.computed_as == 1].scf_guess) == {"previous"}
     assert set(sw[sw.computed_as == 2].scf_guess) == {"extrapolated"}
+    assert set(sw[sw.computed_as == 1].eps_static) == {2.0}
     tg = pd.read_csv(study / "results/tables/eps_targets.tsv", sep="\t")
     # the two pockets hold exact two-fold copies of the pigment, and in a uniform continuum
     # nothing else distinguishes them: their splitting cannot depend on ε

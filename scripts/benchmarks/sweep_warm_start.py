@@ -4,8 +4,8 @@
 Starts: default (PySCF's guess), previous (the previous point's density), extrapolated (the line
 in 1/ε through the two computed densities nearest to the point, siteshift.study.sweep_guess),
 anchored (the site calculation's density at --site-eps is the point before the first one, points
-in ascending ε), outward (anchored, and the points computed nearest to the anchor first,
-siteshift.study.sweep_order: as the sweep stage runs by default). --response-warm also starts each
+in ascending ε: as the sweep stage runs by default), outward (anchored, and the points computed
+nearest to the anchor first, siteshift.study.sweep_order). --response-warm also starts each
 response from the previous point's amplitudes in the anchored sweeps (measured: more Davidson
 products, so the sweep stage does not do it).
 
