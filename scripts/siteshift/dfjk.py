@@ -213,6 +213,7 @@ class CompactDF(df.DF):
         #: Schwarz threshold of the AO pairs kept in the tensors (see PAIR_TOL); 0 keeps all
         self.pair_tol = pair_tol
         self.pair_fraction = None
+        self._pairs = None
         #: precision of the exchange arithmetic; the SCF sets float32 for its early cycles
         self.k_dtype = np.float64
         self._tensors = {}
@@ -220,6 +221,7 @@ class CompactDF(df.DF):
         self._last_rho = None
 
     def reset(self, mol=None):
+        self._pairs = self.pair_fraction = None
         self._tensors = {}
         self._metrics = {}
         self._last_rho = None
@@ -237,8 +239,10 @@ class CompactDF(df.DF):
             auxmol = df.addons.make_auxmol(self.mol, auxbasis)
             self.auxmol = auxmol
             metric = [None, None]
-            pairs = significant_pairs(self.mol, self.pair_tol)
-            self.pair_fraction = float(pairs.mean())
+            if self._pairs is None:  # one mask serves both tensors
+                self._pairs = significant_pairs(self.mol, self.pair_tol)
+                self.pair_fraction = float(self._pairs.mean())
+            pairs = self._pairs
             with _blas():
                 self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage,
                                                  self.block_mb, metric_out=metric, pairs=pairs,
