@@ -430,7 +430,8 @@ class FastTDA:
         self.pcm_eps = None
         self.V = self.W = None
         if hasattr(mf, "with_solvent"):
-            self._build_pcm(mf, settings)
+            with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+                self._build_pcm(mf, settings)
         t3 = time.perf_counter()
         self.setup_s = t3 - t0
         self.n_products = self.n_vectors = 0
