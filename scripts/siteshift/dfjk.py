@@ -427,6 +427,8 @@ class CompactDF(df.DF):
             else:
                 f = unpack_lower(raw, nao, full[:nb])
             for k, (u, v) in enumerate(factors):
+                if u.shape[1] == 0:  # an empty density (e.g. no electron of one spin)
+                    continue
                 zu = self._stacked(f, u, symm, za)
                 vk[k] += zu.T @ (zu if v is None else self._stacked(f, v, symm, zb))
         if with_j:
