@@ -7,8 +7,10 @@ is the same, and within the stated tolerance where a documented approximation is
 import numpy as np
 import pytest
 from pyscf import df, dft, gto, lib, scf
+from pyscf.solvent import pcm
 
-from siteshift.dfjk import CompactDF, FittedPCM, pack_sym, significant_pairs, unpack_sym
+from siteshift.dfjk import (CompactDF, FactoredPCM, FittedPCM, pack_sym, significant_pairs,
+                            unpack_sym)
 from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule, fast_response,
                               make_scf, run_scf)
 from siteshift.functional import SRSH
@@ -224,6 +226,26 @@ def test_fitted_pcm_close_to_exact():
     e0 = fast_response(mf0, s0)[0]
     e1 = fast_response(mf1, s1)[0]
     assert np.max(np.abs(e1 - e0)) * HARTREE2EV < 1.5e-3
+
+
+@pytest.mark.parametrize("method,fit", [("IEF-PCM", True), ("C-PCM", True), ("IEF-PCM", False)])
+def test_pcm_factorised_once_equals_pyscf_step(method, fit):
+    # Reference: PySCF's PCM._get_vind (two dense solves with K in every call) applied to the
+    # same object: K factorised once (LU) and kept between SCF cycles must give its energy and
+    # potential to round-off, for successive densities (the factor is reused, not stale).
+    mf, _s = _ch2o("def2-svp", df_storage="float64", pcm_fit=fit, pcm_method=method)
+    sol = mf.with_solvent
+    assert isinstance(sol, FittedPCM if fit else FactoredPCM)
+    dm = mf.make_rdm1()
+    rng = np.random.default_rng(3)
+    for k in range(3):
+        x = rng.standard_normal(dm.shape)
+        d = dm + 0.01 * k * (x + x.T)
+        e1, v1 = sol._get_vind(d)
+        lu = sol._k_lu
+        e0, v0 = pcm.PCM._get_vind(sol, d)
+        assert sol._k_lu is lu and lu[0] is sol._intermediates["K"]
+        assert abs(e1 - e0) < 1e-12 and np.max(np.abs(v1 - v0)) < 1e-11
 
 
 def test_fitted_pcm_response_matches_its_own_dense_matrix():

@@ -455,28 +455,8 @@ class CompactDF(df.DF):
         return z
 
 
-class FittedPCM(pcm.PCM):
-    """PCM whose surface potential and reaction-field matrix use the fitted density.
-
-    PySCF evaluates (μν|g) for every surface point g twice per SCF cycle. With the density fitted
-    as for the Coulomb matrix, v_g = Σ_P ρ_P W_Pg and V_μν = −Σ_P L_P,μν (W q)_P, with
-    W = J^-1/2 (P|g) computed once: the same fitting that J already uses, so the cost per cycle is
-    that of a J build. ``fit_df`` is the ground state's :class:`CompactDF`.
-    """
-
-    fit_df = None
-
-    def _fit_weights(self):
-        coords = self.surface["grid_coords"]
-        key = (coords.shape, float(np.sum(coords)), id(self.fit_df))
-        if getattr(self, "_w_key", None) != key:
-            if 0.0 not in self.fit_df._metrics:
-                self.fit_df.tensor(0.0)
-            fake = gto.fakemol_for_charges(coords, expnt=self.surface["charge_exp"] ** 2)
-            qg = gto.mole.intor_cross("int2c2e", self.fit_df.auxmol, fake)
-            self._w = self.fit_df.apply_metric(qg)
-            self._w_key = key
-        return self._w
+class FactoredPCM(pcm.PCM):
+    """PySCF's PCM with its surface matrix K factorised once for all SCF cycles."""
 
     def _get_vind(self, dms):
         """PySCF's PCM energy and potential, with K factorised once (LU) for every SCF cycle:
@@ -501,6 +481,30 @@ class FittedPCM(pcm.PCM):
         epcm = 0.5 * np.dot(q_sym[0], v_grids[0])
         self._intermediates.update(q=q[0], q_sym=q_sym[0], v_grids=v_grids[0], dm=dms)
         return epcm, vmat[0]
+
+
+class FittedPCM(FactoredPCM):
+    """PCM whose surface potential and reaction-field matrix use the fitted density.
+
+    PySCF evaluates (μν|g) for every surface point g twice per SCF cycle. With the density fitted
+    as for the Coulomb matrix, v_g = Σ_P ρ_P W_Pg and V_μν = −Σ_P L_P,μν (W q)_P, with
+    W = J^-1/2 (P|g) computed once: the same fitting that J already uses, so the cost per cycle is
+    that of a J build. ``fit_df`` is the ground state's :class:`CompactDF`.
+    """
+
+    fit_df = None
+
+    def _fit_weights(self):
+        coords = self.surface["grid_coords"]
+        key = (coords.shape, float(np.sum(coords)), id(self.fit_df))
+        if getattr(self, "_w_key", None) != key:
+            if 0.0 not in self.fit_df._metrics:
+                self.fit_df.tensor(0.0)
+            fake = gto.fakemol_for_charges(coords, expnt=self.surface["charge_exp"] ** 2)
+            qg = gto.mole.intor_cross("int2c2e", self.fit_df.auxmol, fake)
+            self._w = self.fit_df.apply_metric(qg)
+            self._w_key = key
+        return self._w
 
     def _get_v(self, dms):
         with _blas():

@@ -29,7 +29,7 @@ from pyscf import df, dft, gto, lib
 from pyscf.data import nist
 
 from .bands import assign_bands
-from .dfjk import CompactDF, FittedPCM, pack_sym, unpack_lower, unpack_sym
+from .dfjk import CompactDF, FactoredPCM, FittedPCM, pack_sym, unpack_lower, unpack_sym
 from .functional import SRSH
 from .xcgrid import DenseNumInt, MOKernel
 
@@ -187,6 +187,8 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
         if settings.pcm_fit and isinstance(getattr(mf, "with_df", None), CompactDF):
             mf.with_solvent.__class__ = FittedPCM
             mf.with_solvent.fit_df = mf.with_df
+        elif settings.df_storage != "pyscf":  # "pyscf" keeps PySCF's objects as they are
+            mf.with_solvent.__class__ = FactoredPCM
     return mf
 
 
