@@ -234,6 +234,35 @@ def check_row(name, args, fast, fast_wall, stock, stock_wall):
     return row
 
 
+def provenance():
+    """Columns that make rows of different days and commits comparable: the commit (with
+    '+dirty' for uncommitted changes) and this machine's float32/float64 matrix-product rate
+    at the time of the run (2 threads, n = 3000), since shared machines vary from day to day."""
+    import subprocess
+    import numpy as np
+    from threadpoolctl import threadpool_limits
+    try:
+        commit = subprocess.run(["git", "-C", str(ROOT), "rev-parse", "--short", "HEAD"],
+                                capture_output=True, text=True, check=True).stdout.strip()
+        dirty = subprocess.run(["git", "-C", str(ROOT), "status", "--porcelain", "scripts"],
+                               capture_output=True, text=True).stdout.strip()
+        commit += "+dirty" if dirty else ""
+    except (OSError, subprocess.CalledProcessError):
+        commit = None
+    rates = {}
+    n = 3000
+    for dt in (np.float32, np.float64):
+        a = np.random.default_rng(0).random((n, n)).astype(dt)
+        with threadpool_limits(2, user_api="blas"):
+            a @ a
+            t = time.perf_counter()
+            for _ in range(3):
+                a @ a
+            rates[np.dtype(dt).name] = round(3 * 2 * n ** 3 / (time.perf_counter() - t) / 1e9, 1)
+    return {"commit": commit, "gemm_f32_gflops": rates["float32"],
+            "gemm_f64_gflops": rates["float64"]}
+
+
 def _r(x, nd=1):
     return None if x is None else round(x, nd)
 
@@ -266,6 +295,10 @@ def main():
                     help="check mode: continue with PySCF's Davidson from the fast vectors")
     ap.add_argument("--tsv", default="benchmarks/response_speed.tsv")
     args = ap.parse_args()
+    prov = provenance()
+    print(f"commit {prov['commit']}; matrix products on this machine now: "
+          f"{prov['gemm_f32_gflops']} GFLOP/s float32, {prov['gemm_f64_gflops']} float64",
+          flush=True)
     rows = []
     for name in args.systems.split(","):
         args.state = None
@@ -277,6 +310,7 @@ def main():
             stock, stock_wall = ((measure("stock-check", name, args, args.stock_timeout))
                                  if fast and "e_ev" in fast else (None, 0.0))
             row = check_row(name, args, fast, fast_wall, stock, stock_wall)
+            row.update(prov)
             rows.append(row)
             print(json.dumps(row, indent=1), flush=True)
             continue
@@ -311,7 +345,8 @@ def main():
                                        if fast and stock else None),
                        max_abs_dE_ev=None, max_abs_df=None,
                        energies_ev=" ".join(f"{x:.5f}" for x in (fast or {}).get("e_ev", [])))
-        row.update(threads=args.threads, host=platform.node(), date=time.strftime("%Y-%m-%d %H:%M"))
+        row.update(threads=args.threads, host=platform.node(), date=time.strftime("%Y-%m-%d %H:%M"),
+                   **prov)
         rows.append(row)
         print(json.dumps(row, indent=1), flush=True)
     out = Path(args.tsv)
