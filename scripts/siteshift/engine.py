@@ -170,7 +170,7 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
     mf.xc = functional.xc
     mf.grids.level = settings.grid_level
     mf.conv_tol = settings.conv_tol
-    # PySCF's extra cycle after convergence (one more Fock build, about 100 s of a float64
+    # PySCF's extra cycle after convergence (one more Fock build, 89-93 s as a float64
     # cycle on the bacteriochlorophyll model) is skipped: measured on 4'-hydroxycinnamic
     # acid/def2-SVP (grid 1, fitted PCM), same SCF energy to 1e-10 Eh, excitations moved by
     # at most 4e-5 eV (the spread between initial guesses), f by 1e-5
