@@ -283,31 +283,37 @@ class CompactDF(df.DF):
             return last[1].copy()
         dtril = _pair_density(dms)
         out = np.empty((len(dtril), self.naux()))
-        for p0, p1, blk in self.blocks(0.0):
+        for p0, p1, blk in self._rows64():
             out[:, p0:p1] = dtril @ blk.T
         return out
 
-    def contract_aux(self, c):
-        """Σ_P c_P L_P,μν for each row of c (nset, naux) → (nset, nao, nao)."""
-        c = np.atleast_2d(c)
+    def _rows64(self, omega=0.0):
+        """Yield (p0, p1, float64 rows) of a tensor read once: stored float32 rows are converted
+        a few at a time into one small buffer (a whole float64 block copy went through memory
+        and back: the PCM potential matrix took 2.9-4.9 s per 1000 rows of the
+        bacteriochlorophyll model's tensor this way, 1.5 s with these rows and dgemv)."""
         npair = self.mol.nao * (self.mol.nao + 1) // 2
-        acc = np.zeros((len(c), npair))
-        # stored rows are converted a few at a time into a small buffer and added with BLAS
-        # dgemv into the accumulator (one whole-block conversion plus a matrix product with a
-        # fresh result took 2.9-4.9 s per 1000 rows of the bacteriochlorophyll model's tensor,
-        # this 1.5 s, same numbers to 1e-15 relative)
         step = max(1, int(CONVERT_BLOCK_BYTES // (8 * npair)))
-        buf = np.empty((step, npair))
-        for p0, p1, raw in self.raw_blocks(0.0):
+        buf = None
+        for p0, p1, raw in self.raw_blocks(omega):
             for s0 in range(0, p1 - p0, step):
                 s1 = min(p1 - p0, s0 + step)
                 blk = raw[s0:s1]
                 if blk.dtype != np.float64:
+                    if buf is None:
+                        buf = np.empty((step, npair))
                     np.copyto(buf[:s1 - s0], blk)
                     blk = buf[:s1 - s0]
-                for k in range(len(c)):
-                    acc[k] = scipy.linalg.blas.dgemv(1.0, blk.T, c[k, p0 + s0:p0 + s1],
-                                                     beta=1.0, y=acc[k], overwrite_y=1)
+                yield p0 + s0, p0 + s1, blk
+
+    def contract_aux(self, c):
+        """Σ_P c_P L_P,μν for each row of c (nset, naux) → (nset, nao, nao)."""
+        c = np.atleast_2d(c)
+        acc = np.zeros((len(c), self.mol.nao * (self.mol.nao + 1) // 2))
+        for p0, p1, blk in self._rows64():
+            for k in range(len(c)):  # accumulated in place by BLAS: no fresh product per row
+                acc[k] = scipy.linalg.blas.dgemv(1.0, blk.T, c[k, p0:p1], beta=1.0, y=acc[k],
+                                                 overwrite_y=1)
         return lib.unpack_tril(acc, 1)
 
     def drop(self, omega=None):
@@ -395,9 +401,10 @@ class CompactDF(df.DF):
         cdt = np.dtype(self.k_dtype) if with_k else np.dtype(np.float64)
         factors = []
         for k in range(nset) if with_k else ():
+            # column-major for ?symm; None for the second factor of a symmetric D = U Uᵀ
             u, v = _factor(dms[k], hermi, mo_coeff[k], mo_occ[k])
-            uc = u.astype(cdt)
-            factors.append((uc, uc if v is u else v.astype(cdt)))
+            factors.append((np.asfortranarray(u, dtype=cdt),
+                            None if v is u else np.asfortranarray(v, dtype=cdt)))
         rank = max((u.shape[1] for u, _ in factors), default=1)
         per_row = (8 * npair if with_j else 0) + cdt.itemsize * (nao * nao + 2 * nao * rank)
         rows = max(1, min(int(self.block_mb * 1e6 / per_row), self.naux(omega or 0.0)))
@@ -406,8 +413,6 @@ class CompactDF(df.DF):
         if with_k:
             full = np.empty((rows, nao, nao), dtype=cdt)
             symm = scipy.linalg.blas.get_blas_funcs("symm", dtype=cdt)
-            factors = [(np.asfortranarray(u), None if v is u else np.asfortranarray(v))
-                       for u, v in factors]
             za = np.empty(rows * nao * rank, dtype=cdt)
             if any(v is not None for _, v in factors):
                 zb = np.empty(rows * nao * rank, dtype=cdt)
