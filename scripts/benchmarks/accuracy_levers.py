@@ -10,6 +10,12 @@ response wall time.
 
 Levers: in-core tensors in float64/float32 and the fitted PCM potential (SCF and response),
 response_grid_level 0/1/2 (response only), occ/vir windows (response only).
+
+    python scripts/benchmarks/accuracy_levers.py --study davidson [--grid-level 1]
+
+The Davidson study holds the ground state fixed (the fast path's own: float32 tensors, fitted
+PCM, frozen core 30 eV) and varies only the response residual tolerance against a tight
+reference (1e-6), printing the products and trial vectors each tolerance takes as well.
 """
 from __future__ import annotations
 
@@ -30,8 +36,8 @@ def main():
     import numpy as np
     import pandas as pd
     from response_speed import system
-    from siteshift.engine import (HARTREE2EV, ExciteSettings, build_molecule, configure_threads,
-                                  fast_response, make_scf, run_scf)
+    from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule,
+                                  configure_threads, fast_response, make_scf, run_scf)
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--system", default="hc4")
@@ -39,8 +45,13 @@ def main():
     ap.add_argument("--grid-level", type=int, default=3)
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--nstates", type=int, default=4)
-    ap.add_argument("--tsv", default="benchmarks/accuracy_levers.tsv")
+    ap.add_argument("--study", default="levers", choices=["levers", "davidson"])
+    ap.add_argument("--tsv", default=None,
+                    help="default: benchmarks/accuracy_levers.tsv (levers) or "
+                         "benchmarks/davidson_tolerance.tsv (davidson)")
     args = ap.parse_args()
+    args.tsv = args.tsv or ("benchmarks/accuracy_levers.tsv" if args.study == "levers"
+                            else "benchmarks/davidson_tolerance.tsv")
     configure_threads(args.threads)
     el, xyz = system(args.system)
     base = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,
@@ -70,12 +81,22 @@ def main():
              ("grid 1 + float32 + fitted PCM + occ 30 + vir 40 eV",
               {"grid_level": 1, "df_storage": "float32", "pcm_fit": True, "occ_window_ev": 30.0,
                "vir_window_ev": 40.0})]
+    if args.study == "davidson":
+        base = replace(base, df_storage="float32", pcm_fit=True, occ_window_ev=30.0)
+        cases = [("reference (response_tol 1e-6)", {"response_tol": 1e-6})] + [
+            (f"response_tol {t:g}, start {'unit vectors' if g == 0 else f'A over {g} pairs'}",
+             {"response_tol": t, "guess_pairs": g})
+            for t in (1e-4, 3e-4, 1e-3) for g in (0, 100, 200, 400)]
     rows, ref = [], None
+    default_guess_pairs = FastTDA.guess_pairs
     for label, change in cases:
+        change = dict(change)
+        FastTDA.guess_pairs = change.pop("guess_pairs", default_guess_pairs)
         s = replace(base, **change)
         mf, t_scf, cycles = ground(s)
         t = time.perf_counter()
-        e, f, *_ = fast_response(mf, s)
+        stats = {}
+        e, f, *_ = fast_response(mf, s, stats=stats)
         t_resp = time.perf_counter() - t
         order = np.argsort(e)
         e, f = np.asarray(e)[order] * HARTREE2EV, np.asarray(f)[order]
@@ -89,8 +110,14 @@ def main():
                "max_abs_df": float(np.max(np.abs(f - ref[2]))),
                "energies_ev": " ".join(f"{x:.5f}" for x in e), "threads": args.threads,
                "host": platform.node(), "date": time.strftime("%Y-%m-%d %H:%M")}
+        if args.study == "davidson":  # a file of its own: the levers' TSV has no such columns
+            row.update(response_tol=s.response_tol, guess_pairs=FastTDA.guess_pairs,
+                       products=stats["products"],
+                       vectors=stats["vectors"],
+                       oscillator_strengths=" ".join(f"{x:.5f}" for x in f))
         rows.append(row)
         print(f"{label:58s} SCF {t_scf:6.1f} s  response {t_resp:6.1f} s  "
+              f"({stats['products']} products, {stats['vectors']} vectors)  "
               f"dE_scf {row['dE_scf_hartree']:+.2e} Eh  max|dE| {row['max_abs_dE_mev']:.4f} meV"
               f"  max|df| {row['max_abs_df']:.1e}", flush=True)
     out = ROOT / args.tsv
