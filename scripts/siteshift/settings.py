@@ -33,6 +33,7 @@ def qm_settings(qm: dict, eps_static=1.0, eps_optical=1.0, omega=None, nstates=N
         df_storage=qm.get("df_storage", "float32"), pcm_fit=bool(qm.get("pcm_fit", False)),
         df_pair_tol=float(qm.get("df_pair_tol", 1e-12)),
         response_grid_level=pick("response_grid_level"),
+        response_tol=float(qm.get("response_tol") or ExciteSettings.response_tol),
         occ_window_ev=pick("occ_window_ev"), vir_window_ev=pick("vir_window_ev"))
 
 

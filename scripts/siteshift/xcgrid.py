@@ -287,29 +287,6 @@ class MOKernel:
         with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
             return self._apply(np.asarray(xs))
 
-    def pair_matrix(self, io, va):
-        """The kernel's matrix over a few (i, a) pairs, float64 (k, k): element [p, q] is what
-        ``self`` returns at pair p for a unit amplitude on pair q,
-        2 Σ_g Σ_kl ρ^k_p(g) w f_kl(g) ρ^l_q(g) with ρ^0_p = φ_i φ_a and ρ^k_p = ∇_k(φ_i φ_a).
-        io, va: occupied and virtual indices (within the window) of the k pairs."""
-        io, va = np.asarray(io), np.asarray(va)
-        k = len(io)
-        out = np.zeros((k, k))
-        blocks = self._cache if self.cached else self._orbital_blocks()
-        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
-            for p0, p1, phio, phiv in blocks:
-                po = phio[:, :, io].astype(np.float64)      # (4, ng, k)
-                pv = phiv[:, :, va].astype(np.float64)
-                rho = po * pv[0]
-                rho[1:] += po[0] * pv[1:]
-                w = self.wfxc[:, :, p0:p1]
-                u = np.zeros_like(rho)
-                for c in range(4):
-                    for d in range(4):
-                        u[d] += w[c, d][:, None] * rho[c]
-                out += rho.reshape(-1, k).T @ u.reshape(-1, k)
-        return 2.0 * out
-
     def _apply(self, xs):
         """The kernel in the cache precision: float64 when the orbital values are cached in
         float64 or recomputed, float32 when they are cached in float32 (the grid sums are then
