@@ -133,6 +133,9 @@ def check(path, name, args, q):
         with mf.with_df.range_coulomb(omega) as rsh_df:
             rsh_df.build()
     t1 = time.perf_counter()
+    # printed now: a product stopped by --stock-timeout still shows how the time was split
+    print(f"[stock-check] set-up (PySCF's fitted tensors, operator) {t1 - t0:.1f} s; product "
+          f"started", flush=True)
     x = st["xs"][:args.stock_vectors] if args.stock_vectors else st["xs"]
     st = dict(st, xs=x, e=st["e"][:len(x)])
     x = x.reshape(len(x), -1)
