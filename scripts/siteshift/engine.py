@@ -81,8 +81,8 @@ class ExciteSettings:
     # siteshift runs it; 3e-3 by PySCF's default). Measured on 4'-hydroxycinnamic acid/def2-SVP,
     # grid 1, float32 tensors, fitted PCM, frozen core, 4 states, against 1e-6 (11 products):
     # 3e-4 moves E by 0.0016 meV and f by 3e-5 in 7 products; 1e-4 0.0016 meV, 6e-6, 8 products;
-    # 1e-3 0.0019 meV, 3e-5, 6 products (benchmarks/davidson_tolerance.tsv). The 0.0016 meV is
-    # the float32 (vv) exchange's rounding, the same at every tolerance.
+    # 1e-3 0.0019 meV, 3e-5, 6 products (benchmarks/davidson_tolerance.tsv). The 0.0016 meV,
+    # the same at every tolerance, is of the size of the float32 (vv) exchange's rounding.
     response_tol: float = 3e-4
     max_memory_mb: int = 4000
     df_storage: str = "float32"          # fitted tensors in memory: "float32", "float64" or "pyscf"
