@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 
 from siteshift.bands import assign_bands, axis_cosines
+from siteshift.engine import EngineError
 from siteshift.io import atomic_write_text, stable_hash, write_json
 from siteshift.settings import QM_PRESETS, qm_settings
 
@@ -59,6 +60,8 @@ def test_presets_and_explicit_keys():
     # the Davidson tolerance: the engine's default unless set (null in the schema)
     assert qm_settings({"response_tol": None}).response_tol == 3e-4
     assert qm_settings({"response_tol": 1e-5}).response_tol == 1e-5
+    with pytest.raises(EngineError, match="response_tol"):
+        qm_settings({"response_tol": 0.5}).check()
 
 
 def test_sweep_guess_kinds_and_interpolation():

@@ -109,6 +109,9 @@ class ExciteSettings:
             raise EngineError(f"solver must be 'fast' or 'stock', got {self.solver!r}")
         if self.nstates < 1:
             raise EngineError(f"nstates must be >= 1, got {self.nstates}")
+        if not 0.0 < self.response_tol <= 1e-2:
+            raise EngineError(f"response_tol must be > 0 and <= 0.01 (a Davidson residual norm), "
+                              f"got {self.response_tol}")
         if not 0.0 <= self.df_pair_tol <= 1e-8:
             raise EngineError(f"df_pair_tol must be between 0 and 1e-8, got {self.df_pair_tol}")
         if self.df_storage not in ("float32", "float64", "pyscf"):
