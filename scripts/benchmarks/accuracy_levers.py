@@ -109,6 +109,7 @@ def main():
                "energies_ev": " ".join(f"{x:.5f}" for x in e), "threads": args.threads,
                "host": platform.node(), "date": time.strftime("%Y-%m-%d %H:%M")}
         if args.study == "davidson":  # a file of its own: the levers' TSV has no such columns
+            # guess_pairs 0 = unit starting vectors; the column stays for the rows that varied it
             row.update(response_tol=s.response_tol, guess_pairs=0, products=stats["products"],
                        vectors=stats["vectors"],
                        oscillator_strengths=" ".join(f"{x:.5f}" for x in f))

@@ -22,8 +22,8 @@ from pyscf.solvent import pcm
 from threadpoolctl import threadpool_limits
 
 
-def _blas():
-    """All OpenMP threads PySCF was given, for the BLAS calls made here (siteshift keeps BLAS
+def all_blas_threads():
+    """All OpenMP threads PySCF was given, for siteshift's own dense BLAS work (BLAS is kept
     single-threaded elsewhere, where PySCF's own OpenMP loops call it)."""
     return threadpool_limits(max(1, lib.num_threads()), user_api="blas")
 
@@ -255,7 +255,7 @@ class CompactDF(df.DF):
                 self._pairs = significant_pairs(self.mol, self.pair_tol)
                 self.pair_fraction = float(self._pairs.mean())
             pairs = self._pairs
-            with _blas():
+            with all_blas_threads():
                 self._tensors[key] = build_cderi(self.mol, auxmol, key, self.storage,
                                                  self.block_mb, metric_out=metric, pairs=pairs,
                                                  expcutoff=expcutoff_for(self.pair_tol))
@@ -288,23 +288,12 @@ class CompactDF(df.DF):
         return out
 
     def _rows64(self, omega=0.0):
-        """Yield (p0, p1, float64 rows) of a tensor read once: stored float32 rows are converted
-        a few at a time into one small buffer (a whole float64 block copy went through memory
+        """:meth:`blocks` of a few rows, for a tensor read once: stored float32 rows are
+        converted into one small float64 buffer (a whole float64 block copy went through memory
         and back: the PCM potential matrix took 2.9-4.9 s per 1000 rows of the
         bacteriochlorophyll model's tensor this way, 1.5 s with these rows and dgemv)."""
         npair = self.mol.nao * (self.mol.nao + 1) // 2
-        step = max(1, int(CONVERT_BLOCK_BYTES // (8 * npair)))
-        buf = None
-        for p0, p1, raw in self.raw_blocks(omega):
-            for s0 in range(0, p1 - p0, step):
-                s1 = min(p1 - p0, s0 + step)
-                blk = raw[s0:s1]
-                if blk.dtype != np.float64:
-                    if buf is None:
-                        buf = np.empty((step, npair))
-                    np.copyto(buf[:s1 - s0], blk)
-                    blk = buf[:s1 - s0]
-                yield p0 + s0, p0 + s1, blk
+        return self.blocks(omega, rows=max(1, int(CONVERT_BLOCK_BYTES // (8 * npair))))
 
     def contract_aux(self, c):
         """Σ_P c_P L_P,μν for each row of c (nset, naux) → (nset, nao, nao)."""
@@ -371,7 +360,7 @@ class CompactDF(df.DF):
             yield p0, p1, out
 
     def get_jk(self, dm, hermi=1, with_j=True, with_k=True, direct_scf_tol=None, omega=None):
-        with _blas():
+        with all_blas_threads():
             return self._get_jk(dm, hermi, with_j, with_k, omega)
 
     def _get_jk(self, dm, hermi, with_j, with_k, omega):
@@ -479,7 +468,7 @@ class FactoredPCM(pcm.PCM):
         K, R = self._intermediates["K"], self._intermediates["R"]
         lu = getattr(self, "_k_lu", None)
         if lu is None or lu[0] is not K:
-            with _blas():
+            with all_blas_threads():
                 lu = self._k_lu = (K, scipy.linalg.lu_factor(K))
         v_grids = self.v_grids_n - self._get_v(dms)
         q = scipy.linalg.lu_solve(lu[1], R @ v_grids.T).T
@@ -515,10 +504,10 @@ class FittedPCM(FactoredPCM):
         return self._w
 
     def _get_v(self, dms):
-        with _blas():
+        with all_blas_threads():
             return self.fit_df.fit_density(dms) @ self._fit_weights()
 
     def _get_vmat(self, q):
-        with _blas():
+        with all_blas_threads():
             w = self._fit_weights()
             return -self.fit_df.contract_aux(np.reshape(q, (-1, w.shape[1])) @ w.T)

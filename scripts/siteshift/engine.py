@@ -24,12 +24,12 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pyscf
 import scipy.linalg
-from threadpoolctl import threadpool_limits
 from pyscf import df, dft, gto, lib
 from pyscf.data import nist
 
 from .bands import assign_bands
-from .dfjk import CompactDF, FactoredPCM, FittedPCM, pack_sym, unpack_lower, unpack_sym
+from .dfjk import (CompactDF, FactoredPCM, FittedPCM, all_blas_threads, pack_sym, unpack_lower,
+                   unpack_sym)
 from .functional import SRSH
 from .xcgrid import DenseNumInt, MOKernel
 
@@ -438,7 +438,7 @@ class FastTDA:
         self.pcm_eps = None
         self.V = self.W = None
         if hasattr(mf, "with_solvent"):
-            with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+            with all_blas_threads():
                 self._build_pcm(mf, settings)
         t3 = time.perf_counter()
         self.setup_s = t3 - t0
@@ -511,7 +511,7 @@ class FastTDA:
         return Bov, Boo, Bvv
 
     def _build_df(self, mol):
-        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+        with all_blas_threads():
             self.Bov, self.Boo, self.Bvv = self._mo_tensors(mol)
             if self.omega != 0 and abs(self.c_lr - self.c_sr) > 0:
                 _, self.Loo, self.Lvv = self._mo_tensors(mol, omega=self.omega, with_ov=False)
@@ -677,7 +677,7 @@ def fast_response(mf, settings: ExciteSettings, log=None, stats=None, x0=None):
             x0 = x0[:, solver.occ_index[:, None], solver.vir_index[None, :] - solver.nocc_all]
         else:
             x0 = None
-    with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+    with all_blas_threads():
         e, xs = solver.kernel(settings.nstates, x0=x0)
     osc, tdip = solver.properties(e, xs)
     full = np.zeros((len(xs), solver.nocc_all, solver.nvir_all))

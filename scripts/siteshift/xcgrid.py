@@ -17,9 +17,9 @@ path; everything else (open shells, kernels, meta-GGA) is PySCF's own code.
 from __future__ import annotations
 
 import numpy as np
-from pyscf import lib
 from pyscf.dft import numint
-from threadpoolctl import threadpool_limits
+
+from .dfjk import all_blas_threads
 
 
 def density_factor(dm, mo_coeff=None, mo_occ=None):
@@ -168,7 +168,7 @@ class DenseNumInt(numint.NumInt):
         if xctype != "GGA" or dm.ndim != 2 or hermi != 1 or np.iscomplexobj(dm):
             return super().nr_rks(mol, grids, xc_code, dms, relativity, hermi, max_memory,
                                   verbose)
-        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+        with all_blas_threads():
             return self._nr_rks_dense(mol, grids, xc_code, dms, max_memory)
 
     def _nr_rks_dense(self, mol, grids, xc_code, dms, max_memory):
@@ -232,7 +232,7 @@ class MOKernel:
         self.cache_mb = need_mb if self.cache_dtype is np.float64 else need_mb / 2
         self._cache = None
         if self.cached:
-            with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+            with all_blas_threads():
                 self._cache = list(self._orbital_blocks(dtype=self.cache_dtype))
 
     def _kernel(self, mf, grids):
@@ -242,7 +242,7 @@ class MOKernel:
         c, sign = density_factor(None, mf.mo_coeff, mf.mo_occ)
         rho = np.empty((4, grids.weights.size))
         p0 = 0
-        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+        with all_blas_threads():
             for p0, p1, ao, idx, _w in screened_blocks(self.ni, self.mol, grids,
                                                        self.max_memory_mb):
                 if idx is not None and len(idx) == 0:
@@ -263,16 +263,16 @@ class MOKernel:
         for p0, p1, ao, idx, _w in screened_blocks(self.ni, self.mol, self.grids,
                                                    self.max_memory_mb):
             ng = p1 - p0
-            if idx is not None and len(idx) == 0:
-                for q0 in range(0, ng, sub):
-                    q1 = min(ng, q0 + sub)
-                    yield p0 + q0, p0 + q1, np.zeros((4, q1 - q0, no), dt), \
-                        np.zeros((4, q1 - q0, nv), dt)
-                continue
-            o = (self.orbo if idx is None else self.orbo[idx]).astype(dt)
-            v = (self.orbv if idx is None else self.orbv[idx]).astype(dt)
+            empty = idx is not None and len(idx) == 0   # no AO survives the screening here
+            if not empty:
+                o = (self.orbo if idx is None else self.orbo[idx]).astype(dt)
+                v = (self.orbv if idx is None else self.orbv[idx]).astype(dt)
             for q0 in range(0, ng, sub):
                 q1 = min(ng, q0 + sub)
+                if empty:
+                    yield p0 + q0, p0 + q1, np.zeros((4, q1 - q0, no), dt), \
+                        np.zeros((4, q1 - q0, nv), dt)
+                    continue
                 phio = np.empty((4, q1 - q0, no), dt)
                 phiv = np.empty((4, q1 - q0, nv), dt)
                 for k in range(4):
@@ -284,7 +284,7 @@ class MOKernel:
                 yield p0 + q0, p0 + q1, flush_tiny(phio), flush_tiny(phiv)
 
     def __call__(self, xs):
-        with threadpool_limits(max(1, lib.num_threads()), user_api="blas"):
+        with all_blas_threads():
             return self._apply(np.asarray(xs))
 
     def _apply(self, xs):
