@@ -4,7 +4,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(workflow.basedir) / "scripts"))
 
-from siteshift.config import check_config  # noqa: E402
+from siteshift.study.config import check_config  # noqa: E402
 
 check_config(config, Path.cwd())
 

@@ -2,8 +2,8 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.engine import configure_threads
-from siteshift.study import excite_stage, setup_logging
+from siteshift.qm.settings import configure_threads
+from siteshift.study.stages import excite_stage, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

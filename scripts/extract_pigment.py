@@ -2,8 +2,8 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.library import load_library
-from siteshift.study import extract_stage, setup_logging
+from siteshift.structures.library import load_library
+from siteshift.study.stages import extract_stage, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -2,9 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.library import load_library
-from siteshift.settings import dielectric_model, environment_settings
-from siteshift.study import environment_stage, setup_logging
+from siteshift.structures.library import load_library
+from siteshift.study.config import dielectric_model, environment_settings
+from siteshift.study.stages import environment_stage, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -2,9 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.io import write_json
-from siteshift.mutate import mutate
-from siteshift.study import log, setup_logging
+from siteshift.base.io import write_json
+from siteshift.structures.mutate import mutate
+from siteshift.study.stages import log, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -2,8 +2,8 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.plots import plot_site_energies, plot_spectra, plot_variant_shifts
-from siteshift.study import setup_logging
+from siteshift.study.plots import plot_site_energies, plot_spectra, plot_variant_shifts
+from siteshift.study.stages import setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -2,8 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.engine import configure_threads
-from siteshift.study import setup_logging, sweep_anchor, sweep_stage
+from siteshift.qm.settings import configure_threads
+from siteshift.study.stages import setup_logging
+from siteshift.study.sweep import sweep_anchor, sweep_stage
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

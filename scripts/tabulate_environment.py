@@ -2,7 +2,8 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.study import environment_table, setup_logging
+from siteshift.study.stages import setup_logging
+from siteshift.study.tables import environment_table
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

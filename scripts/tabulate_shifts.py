@@ -2,8 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.library import load_library
-from siteshift.study import setup_logging, shift_tables
+from siteshift.structures.library import load_library
+from siteshift.study.stages import setup_logging
+from siteshift.study.tables import shift_tables
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

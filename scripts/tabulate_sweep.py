@@ -2,8 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.plots import plot_sweep
-from siteshift.study import setup_logging, sweep_tables
+from siteshift.study.plots import plot_sweep
+from siteshift.study.stages import setup_logging
+from siteshift.study.tables import sweep_tables
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -1,9 +1,9 @@
-"""Snakemake script: inventory of one structure (see siteshift.study.inventory_stage)."""
+"""Snakemake script: inventory of one structure (see siteshift.study.stages.inventory_stage)."""
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.library import load_library
-from siteshift.study import inventory_stage, setup_logging
+from siteshift.structures.library import load_library
+from siteshift.study.stages import inventory_stage, setup_logging
 
 setup_logging(snakemake.log[0])  # noqa: F821
 inventory_stage(snakemake.input.structure, snakemake.output.tsv, snakemake.output.json,  # noqa: F821

@@ -2,9 +2,9 @@
 import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
-from siteshift.settings import qm_settings, tune_xatol
-from siteshift.engine import configure_threads
-from siteshift.study import setup_logging, tune_stage
+from siteshift.study.config import qm_settings, tune_xatol
+from siteshift.qm.settings import configure_threads
+from siteshift.study.stages import setup_logging, tune_stage
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

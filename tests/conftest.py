@@ -21,5 +21,5 @@ def hc19_path():
 
 @pytest.fixture(scope="session")
 def library():
-    from siteshift.library import load_library
+    from siteshift.structures.library import load_library
     return load_library()

@@ -5,9 +5,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from siteshift.aggregate import (EV2CM1, auto_pairs, branch_shifts, site_energies, spectrum,
-                                 variant_shifts)
-from siteshift.engine import NM_EV
+from siteshift.base.units import EV2CM1
+from siteshift.study.tables import (auto_pairs, branch_shifts, site_energies, spectrum,
+                                    variant_shifts)
+from siteshift.base.units import NM_EV
 
 
 def _result(tmp_path, variant, pid, energies, f, h="h"):
@@ -77,7 +78,7 @@ def test_spectrum_integrates_to_total_strength():
 
 
 def test_plots_are_written(tmp_path, sites):
-    from siteshift.plots import plot_site_energies, plot_spectra
+    from siteshift.study.plots import plot_site_energies, plot_spectra
     tsv = tmp_path / "sites.tsv"
     sites.to_csv(tsv, sep="\t", index=False)
     plot_site_energies(tsv, tmp_path / "s.png", tmp_path / "s.svg")
@@ -89,7 +90,7 @@ def test_plots_are_written(tmp_path, sites):
 
 
 def test_eps_for_target_interpolates_with_bracket():
-    from siteshift.aggregate import eps_for_target
+    from siteshift.study.tables import eps_for_target
     rows = []
     for eps, ea, eb in ((2.0, 4.00, 4.10), (4.0, 4.00, 4.05), (8.0, 4.00, 3.98)):
         rows += [{"variant": "wt", "band": "Qy", "pigment_id": "A", "eps_static": eps,
@@ -114,8 +115,8 @@ def test_eps_for_target_interpolates_with_bracket():
 
 
 def test_single_variant_study_gives_empty_but_typed_tables(tmp_path):
-    from siteshift.plots import plot_variant_shifts
-    from siteshift.io import write_tsv
+    from siteshift.study.plots import plot_variant_shifts
+    from siteshift.base.io import write_tsv
     sites = site_energies([_result(tmp_path, "wt", "A_HC4101", [4.0, 4.3], [0.001, 0.9])])
     vs = variant_shifts(sites, "wt")
     br = branch_shifts(sites, [])

@@ -5,7 +5,7 @@ import jsonschema
 import pytest
 import yaml
 
-from siteshift.config import ConfigError, check_config
+from siteshift.study.config import ConfigError, check_config
 
 
 @pytest.fixture(scope="module")

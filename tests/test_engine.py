@@ -3,10 +3,14 @@ import numpy as np
 import pytest
 from pyscf import dft, gto
 
-from siteshift.engine import (HARTREE2EV, EngineError, ExciteSettings, FastTDA, build_molecule,
-                              excite, fast_response, make_scf, run_scf, stock_response,
-                              tune_omega)
-from siteshift.functional import SRSH
+from siteshift.base.units import HARTREE2EV
+from siteshift.qm.excite import excite
+from siteshift.qm.fasttda import FastTDA, fast_response
+from siteshift.qm.scf import build_molecule, make_scf, run_scf
+from siteshift.qm.settings import EngineError, ExciteSettings
+from siteshift.qm.stock import stock_response
+from siteshift.qm.tuning import tune_omega
+from siteshift.qm.functional import SRSH
 
 WATER = (["O", "H", "H"], [[0.0, 0.0, 0.1173], [0.0, 0.7572, -0.4692], [0.0, -0.7572, -0.4692]])
 # formaldehyde, experimental-like geometry (Å; common practice values, from memory)

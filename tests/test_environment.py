@@ -2,9 +2,9 @@
 import numpy as np
 import pytest
 
-from siteshift.dielectric import DielectricModel, DielectricError
-from siteshift.environment import (KYTE_DOOLITTLE, EnvironmentSettings,
-                                   gaussian_density, radius, sasa, site_metrics)
+from siteshift.environment.dielectric import DielectricModel, DielectricError
+from siteshift.environment.metrics import (KYTE_DOOLITTLE, EnvironmentSettings, gaussian_density,
+                                           radius, sasa, site_metrics)
 
 
 def test_kyte_doolittle_table():
@@ -113,9 +113,9 @@ def test_dielectric_bounds_and_errors():
 def test_19hc_burial_and_dielectric_ordering(hc19_path, library):
     # Real structure: PDB 19HC. Ranking by burial must be the SASA ranking, and the most buried
     # heme must get a lower ε_static than the most exposed one.
-    from siteshift.inventory import pigment_residues
-    from siteshift.structure import read_structure
-    from siteshift.study import measure_site
+    from siteshift.structures.inventory import pigment_residues
+    from siteshift.structures.reading import read_structure
+    from siteshift.study.stages import measure_site
     atoms = read_structure(hc19_path)
     pigs, _ = pigment_residues(atoms, library)
     model = DielectricModel()
@@ -139,7 +139,7 @@ def test_19hc_burial_and_dielectric_ordering(hc19_path, library):
 def test_eisenberg_scale_orders_like_kyte_doolittle():
     # Both published scales rank the apolar residues I, V, L, F above the charged R, K, D, E
     # (Eisenberg et al., J. Mol. Biol. 179, 125 (1984); Kyte & Doolittle 1982).
-    from siteshift.environment import EISENBERG
+    from siteshift.environment.metrics import EISENBERG
     for apolar in ("ILE", "VAL", "LEU", "PHE"):
         for charged in ("ARG", "LYS", "ASP", "GLU"):
             assert EISENBERG[apolar] > EISENBERG[charged]

@@ -3,8 +3,8 @@ import numpy as np
 import pytest
 import yaml
 
-from siteshift.config import ConfigError, check_config
-from siteshift.mutate import MutationError, choose_rotamer, mutate, parse_mutation
+from siteshift.study.config import ConfigError, check_config
+from siteshift.structures.mutate import MutationError, choose_rotamer, mutate, parse_mutation
 
 
 def test_parse_mutation():
@@ -15,8 +15,8 @@ def test_parse_mutation():
 
 
 def test_mutation_keeps_pigments_and_clears_them(root, tmp_path, library):
-    from siteshift.inventory import take_inventory
-    from siteshift.structure import read_structure
+    from siteshift.structures.inventory import take_inventory
+    from siteshift.structures.reading import read_structure
     out = tmp_path / "m.pdb"
     rep = mutate(root / "config/demo/pcd2_wt.pdb", ["A:I6E"], out)
     atoms = read_structure(out)

@@ -1,7 +1,7 @@
 """Automatic branch pairing by chain superposition."""
 
-from siteshift.pairing import auto_pairs_by_superposition, superpose_chains
-from siteshift.structure import read_structure
+from siteshift.structures.pairing import auto_pairs_by_superposition, superpose_chains
+from siteshift.structures.reading import read_structure
 
 
 def test_demo_pockets_pair_up(root, library):

@@ -9,12 +9,14 @@ import pytest
 from pyscf import df, dft, gto, lib, scf
 from pyscf.solvent import pcm
 
-from siteshift.dfjk import (CompactDF, FactoredPCM, FittedPCM, pack_sym, significant_pairs,
-                            unpack_sym)
-from siteshift.engine import (HARTREE2EV, ExciteSettings, FastTDA, build_molecule, fast_response,
-                              make_scf, run_scf)
-from siteshift.functional import SRSH
-from siteshift.xcgrid import DenseNumInt, MOKernel, flush_tiny
+from siteshift.qm.dfjk import CompactDF, pack_sym, significant_pairs, unpack_sym
+from siteshift.qm.pcm import FactoredPCM, FittedPCM
+from siteshift.base.units import HARTREE2EV
+from siteshift.qm.fasttda import FastTDA, fast_response
+from siteshift.qm.scf import build_molecule, make_scf, run_scf
+from siteshift.qm.settings import ExciteSettings
+from siteshift.qm.functional import SRSH
+from siteshift.qm.xcgrid import DenseNumInt, MOKernel, flush_tiny
 
 # methanol-like 6-atom molecule plus formaldehyde geometry (Å; common practice values, from memory)
 MEOH = "C 0 0 0; O 1.43 0 0; H 1.75 0.9 0; H -0.36 1.03 0; H -0.36 -0.51 0.89; H -0.36 -0.51 -0.89"

@@ -5,10 +5,10 @@ from collections import Counter
 import numpy as np
 import pytest
 
-from siteshift.inventory import take_inventory
-from siteshift.qmmodel import (ModelError, build_qm_model, ccd_graph, ccd_residue,
-                               close_contacts, formula, kabsch)
-from siteshift.structure import StructureError, read_structure
+from siteshift.structures.inventory import take_inventory
+from siteshift.structures.qmmodel import (ModelError, build_qm_model, ccd_graph, ccd_residue,
+                                          close_contacts, formula, kabsch)
+from siteshift.structures.reading import StructureError, read_structure
 
 
 def _ccd_truncated_formula(code, ptype):
@@ -62,7 +62,7 @@ def test_19hc_inventory(hc19, library):
 
 
 def test_19hc_models_sane_geometry(hc19, library):
-    from siteshift.inventory import model_for, pigment_residues
+    from siteshift.structures.inventory import model_for, pigment_residues
     pigs, _ = pigment_residues(hc19, library)
     for res in pigs[:4]:
         m = model_for(res, library)
@@ -189,10 +189,10 @@ def test_models_do_not_depend_on_string_hashing(root):
     import subprocess
     import sys
     code = ("import sys; sys.path.insert(0, 'scripts');"
-            "from siteshift.structure import read_structure;"
-            "from siteshift.library import load_library;"
-            "from siteshift.study import find_pigment;"
-            "from siteshift.inventory import model_for;"
+            "from siteshift.structures.reading import read_structure;"
+            "from siteshift.structures.library import load_library;"
+            "from siteshift.study.stages import find_pigment;"
+            "from siteshift.structures.inventory import model_for;"
             "lib = load_library(); a = read_structure('config/demo/pcd2_wt.pdb');"
             "print(model_for(find_pigment(a, lib, 'B_HC4101'), lib).coords.round(6).tolist())")
     outs = {subprocess.run([sys.executable, "-c", code], cwd=root, capture_output=True, text=True,
@@ -205,8 +205,8 @@ def test_19hc_bis_his_ligands_in_every_cluster(hc19_path, tmp_path, library):
     # 19HC hemes are bis-His ligated: each cluster must hold two His whose NE2 (or ND1) lies
     # within 2.6 Å of the iron (coordination bond ≈ 2.0 Å; RCSB entry, common practice).
     import MDAnalysis as mda
-    from siteshift.inventory import pigment_residues
-    from siteshift.study import extract_stage
+    from siteshift.structures.inventory import pigment_residues
+    from siteshift.study.stages import extract_stage
     atoms = read_structure(hc19_path)
     pigs, _ = pigment_residues(atoms, library)
     for res in pigs:
@@ -223,7 +223,7 @@ def test_axial_his_ligands_join_the_qm_model(hc19_path, library, tmp_path):
     # 19HC bis-His hemes: with axial ligands on, each QM model gains two 4-methylimidazoles
     # (His side chains cut at CA–CB; the coordinating Nε loses its proton): C30H28FeN4 +
     # 2 × C4H6N2 = C38H40FeN8, still neutral (formula from the CCD HIS entry).
-    from siteshift.study import extract_stage
+    from siteshift.study.stages import extract_stage
     rec = extract_stage(hc19_path, "B_HEM305", tmp_path / "m.xyz", tmp_path / "m.json",
                         tmp_path / "c.pdb", library=library, axial_ligands=True)
     assert rec["formula"] == "C38H40FeN8" and rec["charge"] == 0

@@ -4,10 +4,10 @@ import json
 import numpy as np
 import pytest
 
-from siteshift.bands import assign_bands, axis_cosines
-from siteshift.engine import EngineError
-from siteshift.io import atomic_write_text, stable_hash, write_json
-from siteshift.settings import QM_PRESETS, qm_settings
+from siteshift.qm.bands import assign_bands, axis_cosines
+from siteshift.qm.settings import EngineError
+from siteshift.base.io import atomic_write_text, stable_hash, write_json
+from siteshift.study.config import QM_PRESETS, qm_settings
 
 
 def _state(e, f, d):
@@ -67,7 +67,7 @@ def test_presets_and_explicit_keys():
 def test_sweep_guess_kinds_and_interpolation():
     # Linear in x = 1/ε through the last two points (exact for a density linear in 1/ε); two
     # points at the same ε (an anchor equal to a grid point) fall back to the previous density.
-    from siteshift.study import sweep_guess
+    from siteshift.study.sweep import sweep_guess
     d = lambda x: np.array([[1.0 + 2.0 * x]])  # noqa: E731
     assert sweep_guess([], [], 4.0) == ("default", None)
     kind, dm = sweep_guess([d(0.5)], [0.5], 4.0)
@@ -85,7 +85,7 @@ def test_sweep_guess_kinds_and_interpolation():
 
 
 def test_sweep_order_outward_from_the_anchor():
-    from siteshift.study import sweep_order
+    from siteshift.study.sweep import sweep_order
     assert sweep_order([16, 2, 8, 4]) == [2.0, 4.0, 8.0, 16.0]
     # site at ε 8.33 (1/ε 0.12): distances in 1/ε 0.005 (8), 0.0575 (16), 0.13 (4), 0.38 (2)
     assert sweep_order([2, 4, 8, 16], 1 / 8.33) == [8.0, 16.0, 4.0, 2.0]

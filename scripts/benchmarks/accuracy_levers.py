@@ -36,8 +36,10 @@ def main():
     import numpy as np
     import pandas as pd
     from response_speed import system
-    from siteshift.engine import (HARTREE2EV, ExciteSettings, build_molecule, configure_threads,
-                                  fast_response, make_scf, run_scf)
+    from siteshift.base.units import HARTREE2EV
+    from siteshift.qm.fasttda import fast_response
+    from siteshift.qm.scf import build_molecule, make_scf, run_scf
+    from siteshift.qm.settings import ExciteSettings, configure_threads
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--system", default="hc4")

@@ -35,8 +35,8 @@ sys.path.insert(0, str(ROOT / "scripts"))
 
 def system(name):
     import biotite.structure.info as info
-    from siteshift.library import load_library
-    from siteshift.qmmodel import build_qm_model
+    from siteshift.structures.library import load_library
+    from siteshift.structures.qmmodel import build_qm_model
     code = {"hc4": "HC4", "bcl": "BCL"}[name]
     arr = info.residue(code)
     heavy = arr[arr.element != "H"]
@@ -49,8 +49,10 @@ def run(path, name, args, q):
     """One path end to end in this (forked) process; partial results go to q as they come."""
     import numpy as np
     from pyscf.dft import numint
-    from siteshift.engine import (ExciteSettings, build_molecule, configure_threads,
-                                  fast_response, make_scf, run_scf, stock_response)
+    from siteshift.qm.fasttda import fast_response
+    from siteshift.qm.scf import build_molecule, make_scf, run_scf
+    from siteshift.qm.settings import ExciteSettings, configure_threads
+    from siteshift.qm.stock import stock_response
     configure_threads(args.threads)
     el, xyz = system(name)
     s = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,
@@ -106,8 +108,9 @@ def check(path, name, args, q):
     """
     import numpy as np
     from pyscf.dft import numint
-    from siteshift.engine import (ExciteSettings, _response_solvent, build_molecule,
-                                  configure_threads, make_scf)
+    from siteshift.qm.pcm import response_solvent
+    from siteshift.qm.scf import build_molecule, make_scf
+    from siteshift.qm.settings import ExciteSettings, configure_threads
     configure_threads(args.threads)
     el, xyz = system(name)
     s = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,
@@ -123,7 +126,7 @@ def check(path, name, args, q):
     t0 = time.perf_counter()
     td = mf.TDA()
     td.nstates, td.conv_tol = s.nstates, 1e-7
-    td.with_solvent = _response_solvent(mf, s)
+    td.with_solvent = response_solvent(mf, s)
     vind, _hdiag = td.gen_vind(mf)
     # PySCF builds its fitted tensors (full range, then the erf one) on first use: built here,
     # so that they count as set-up and the product below is the cost per trial vector

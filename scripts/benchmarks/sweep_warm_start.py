@@ -2,10 +2,10 @@
 """Benchmark: SCF cycles and response products per ε-sweep point for each way of starting it.
 
 Starts: default (PySCF's guess), previous (the previous point's density), extrapolated (the line
-in 1/ε through the two computed densities nearest to the point, siteshift.study.sweep_guess),
+in 1/ε through the two computed densities nearest to the point, siteshift.study.sweep.sweep_guess),
 anchored (the site calculation's density at --site-eps is the point before the first one, points
 in ascending ε: as the sweep stage runs by default), outward (anchored, and the points computed
-nearest to the anchor first, siteshift.study.sweep_order). --response-warm also starts each
+nearest to the anchor first, siteshift.study.sweep.sweep_order). --response-warm also starts each
 response from the previous point's amplitudes in the anchored sweeps (measured: more Davidson
 products, so the sweep stage does not do it).
 
@@ -32,8 +32,9 @@ def main():
     import numpy as np
     import pandas as pd
     from response_speed import system
-    from siteshift.engine import ExciteSettings, configure_threads, excite
-    from siteshift.study import sweep_guess, sweep_order
+    from siteshift.qm.excite import excite
+    from siteshift.qm.settings import ExciteSettings, configure_threads
+    from siteshift.study.sweep import sweep_guess, sweep_order
     ap = argparse.ArgumentParser(description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--system", default="hc4")

@@ -16,7 +16,7 @@ import numpy as np
 
 
 def _library(args):
-    from .library import load_library
+    from .structures.library import load_library
     return load_library(args.library)
 
 
@@ -41,8 +41,8 @@ def read_xyz(path):
 
 
 def cmd_inventory(args):
-    from .structure import read_structure
-    from .inventory import take_inventory
+    from .structures.reading import read_structure
+    from .structures.inventory import take_inventory
     atoms = read_structure(args.structure, args.altloc)
     rows = take_inventory(atoms, _library(args))
     print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc})")
@@ -55,19 +55,19 @@ def cmd_inventory(args):
               f"{'' if r['multiplicity'] is None else r['multiplicity']:>4}  {r['status']}"
               f"{' - ' + r['problems'] if r['problems'] else ''}")
     if args.json:
-        from .io import write_json
+        from .base.io import write_json
         write_json(args.json, {"structure": args.structure, "altloc": args.altloc,
                                "n_atoms": len(atoms), "pigments": rows})
     if args.tsv:
         import pandas as pd
-        from .inventory import INVENTORY_COLUMNS
-        from .io import write_tsv
+        from .structures.inventory import INVENTORY_COLUMNS
+        from .base.io import write_tsv
         write_tsv(args.tsv, pd.DataFrame(rows, columns=INVENTORY_COLUMNS))
     return 0
 
 
 def cmd_extract(args):
-    from .study import extract_stage
+    from .study.stages import extract_stage
     out = Path(args.outdir)
     rec = extract_stage(args.structure, args.pigment, out / "qm_model.xyz", out / "qm_model.json",
                         out / "cluster.pdb", library=_library(args), altloc=args.altloc,
@@ -77,10 +77,10 @@ def cmd_extract(args):
 
 
 def cmd_environment(args):
-    from .dielectric import DielectricModel
-    from .inventory import pigment_residues
-    from .structure import read_structure
-    from .study import measure_site
+    from .environment.dielectric import DielectricModel
+    from .structures.inventory import pigment_residues
+    from .structures.reading import read_structure
+    from .study.stages import measure_site
     lib = _library(args)
     atoms = read_structure(args.structure, args.altloc)
     pigs, _ = pigment_residues(atoms, lib)
@@ -99,13 +99,13 @@ def cmd_environment(args):
               f"polar={metrics['n_polar_atoms']} charged={metrics['n_charged_groups']} "
               f"waters={metrics['n_waters']} packing={metrics['packing_density']:.2f}")
     if args.json:
-        from .io import write_json
+        from .base.io import write_json
         write_json(args.json, out)
     return 0
 
 
 def _settings(args):
-    from .engine import ExciteSettings
+    from .qm.settings import ExciteSettings
     es, eo = (1.0, 1.0) if args.gas else (args.eps_static, args.eps_optical)
     if es is None or eo is None:
         raise SystemExit("error: give --gas or both --eps-static and --eps-optical")
@@ -118,8 +118,9 @@ def _settings(args):
 
 
 def cmd_excite(args):
-    from .engine import excite, tune_omega
-    from .io import write_json
+    from .qm.excite import excite
+    from .qm.tuning import tune_omega
+    from .base.io import write_json
     el, xyz = read_xyz(args.xyz)
     s = _settings(args)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
@@ -141,8 +142,8 @@ def cmd_excite(args):
 
 
 def cmd_tune(args):
-    from .engine import tune_omega
-    from .io import write_json
+    from .qm.tuning import tune_omega
+    from .base.io import write_json
     el, xyz = read_xyz(args.xyz)
     args.gas, args.omega = True, None
     s = _settings(args)
@@ -227,13 +228,13 @@ def main(argv=None):
     args = ap.parse_args(argv)
     if args.cmd in ("excite", "tune"):
         import os
-        from .engine import configure_threads
+        from .qm.settings import configure_threads
         configure_threads(args.threads or os.cpu_count() or 1)
-    from .dielectric import DielectricError
-    from .engine import EngineError
-    from .library import LibraryError
-    from .qmmodel import ModelError
-    from .structure import StructureError
+    from .environment.dielectric import DielectricError
+    from .qm.settings import EngineError
+    from .structures.library import LibraryError
+    from .structures.qmmodel import ModelError
+    from .structures.reading import StructureError
     try:
         return args.func(args)
     except (StructureError, ModelError, EngineError, LibraryError, DielectricError) as exc:

@@ -11,14 +11,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import io
-from .dielectric import DielectricModel
-from .engine import ExciteSettings, excite, tune_omega
-from .environment import EnvironmentSettings, environment_arrays, site_metrics
-from .inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
-from .library import load_library
-from .qmmodel import QMModel
-from .structure import StructureError, read_structure
+from ..base import io
+from ..environment.dielectric import DielectricModel
+from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
+from ..qm.excite import excite
+from ..qm.settings import ExciteSettings
+from ..qm.tuning import tune_omega
+from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
+from ..structures.library import load_library
+from ..structures.qmmodel import QMModel
+from ..structures.reading import StructureError, read_structure
 
 log = logging.getLogger("siteshift")
 
@@ -101,7 +103,7 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
 
     axial_ligands: add the side chains coordinating the pigment's metal to the QM model.
     """
-    from .qmmodel import add_axial_ligands
+    from ..structures.qmmodel import add_axial_ligands
     library = library or load_library()
     atoms = read_structure(structure, altloc)
     res = find_pigment(atoms, library, pigment_id)
@@ -211,7 +213,7 @@ class _hash_lock:
 def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
                  cache_dir=None, variant=None):
     """Excited states of one pigment; results are cached by a hash of every QM input."""
-    from .settings import qm_settings
+    from .config import qm_settings
     rec = io.read_json(model_json)
     env = io.read_json(environment_json)
     diel = env["dielectric"]
@@ -254,185 +256,7 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
     return result
 
 
-def environment_table(environment_files, out_tsv):
-    """One row per site: metrics, dielectric constants and each term's contribution."""
-    rows = []
-    for p in environment_files:
-        d = io.read_json(p)
-        variant = Path(p).parts[-4] if len(Path(p).parts) >= 4 else ""
-        row = {"variant": variant, "pigment_id": d["pigment_id"], "ccd_code": d["ccd_code"]}
-        row.update({k: v for k, v in d["metrics"].items()})
-        row.update({k: v for k, v in d["dielectric"].items() if k != "pigment_id"})
-        rows.append(row)
-    df = pd.DataFrame(rows)
-    io.write_tsv(out_tsv, df)
-    log.info("environment table: %d sites -> %s", len(df), out_tsv)
-    return df
-
-
-def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None,
-                 out_pairs=None, reference_structure=None, altloc="occupancy", library=None):
-    """Site-energy, branch-shift and variant-shift tables (and the pair list used)."""
-    from .aggregate import auto_pairs, branch_shifts, site_energies, variant_shifts
-    sites = site_energies(result_files)
-    branches = branches or {}
-    pairs = [tuple(p) for p in branches.get("pairs", [])]
-    pair_rows = [{"name": n, "pigment_a": a, "pigment_b": b, "source": "config"}
-                 for n, a, b in pairs]
-    if branches.get("auto"):
-        known = {(a, b) for _n, a, b in pairs}
-        found = []
-        if reference_structure:
-            from .pairing import auto_pairs_by_superposition
-            atoms = read_structure(reference_structure, altloc)
-            found = [r for r in auto_pairs_by_superposition(atoms, library or load_library(),
-                                                            sorted(set(sites.ccd_code)))
-                     if (r["pigment_a"], r["pigment_b"]) not in known]
-            for r in found:
-                log.info("auto pair %s: chains %s/%s superposed on %d CA, RMSD %.3f A; partner "
-                         "%.2f A away after superposition", r["name"], r["chain_a"],
-                         r["chain_b"], r["n_ca"], r["rmsd_A"], r["distance_A"])
-            pair_rows += [{**r, "source": "superposition"} for r in found]
-            pairs += [(r["name"], r["pigment_a"], r["pigment_b"]) for r in found]
-        if not found:
-            extra = [p for p in auto_pairs(sorted(set(sites.pigment_id)))
-                     if (p[1], p[2]) not in known]
-            pairs += extra
-            pair_rows += [{"name": n, "pigment_a": a, "pigment_b": b,
-                           "source": "equal residue numbers"} for n, a, b in extra]
-    if out_pairs:
-        io.write_tsv(out_pairs, pd.DataFrame(pair_rows, columns=sorted(
-            {k for r in pair_rows for k in r}) or ["name", "pigment_a", "pigment_b", "source"]))
-    for _n, a, b in pairs:
-        for pid in (a, b):
-            if pid not in set(sites.pigment_id):
-                log.warning("branch pair pigment %s has no result in any variant", pid)
-    br = branch_shifts(sites, pairs)
-    vs = variant_shifts(sites, reference)
-    io.write_tsv(out_sites, sites)
-    io.write_tsv(out_branches, br)
-    io.write_tsv(out_variants, vs)
-    log.info("site energies: %d rows; branch shifts: %d rows; variant shifts: %d rows",
-             len(sites), len(br), len(vs))
-    if not vs.empty and "status" in vs:
-        for _i, r in vs[vs.status != "ok"].iterrows():
-            log.warning("variant %s: pigment %s %s", r.variant, r.pigment_id, r.status)
-    return sites, br, vs
-
 
 def density_path(cached_json):
     """Where the ground-state density of a cached excited-state result is kept (.npy)."""
     return Path(cached_json).with_suffix(".dm.npy")
-
-
-def sweep_anchor(excite_json, cache_dir, qm: dict):
-    """(1/ε, density) of the pigment's own excited-state calculation, a point on the sweep's
-    curve when that calculation used the same functional family (static screening, so the
-    ground state depends on ε_static alone), or None (not cached, or screened by ε_optical)."""
-    if not excite_json or not cache_dir or qm.get("screen", "static") != "static":
-        return None
-    res = io.read_json(excite_json)
-    path = density_path(Path(cache_dir) / f"{res.get('qm_hash')}.json")
-    if not path.exists():
-        return None
-    return 1.0 / float(res["eps_static"]), np.load(path)
-
-
-def sweep_guess(dms, xs, eps, extrapolate=True):
-    """(kind, density) to start the SCF at ε from earlier points' densities dms at xs = 1/ε.
-
-    The straight line in 1/ε through the two computed points nearest to 1/ε (interpolation when
-    they lie on both sides, else extrapolation); the nearest density alone when only one point,
-    or only one distinct ε, is there."""
-    if not dms:
-        return "default", None
-    x = 1.0 / eps
-    order = sorted(range(len(xs)), key=lambda k: (abs(xs[k] - x), -k))
-    i = order[0]
-    j = next((k for k in order[1:] if abs(xs[k] - xs[i]) > 1e-9), None)
-    if not extrapolate or j is None:
-        return "previous", dms[i]
-    f = (x - xs[i]) / (xs[i] - xs[j])
-    return "extrapolated", dms[i] + f * (dms[i] - dms[j])
-
-
-def sweep_order(eps_grid, x_anchor=None):
-    """The sweep's ε in the order they are computed: ascending (the sweep stage), or, with an
-    anchor at 1/ε = x_anchor, nearest to the anchor first in 1/ε (the benchmark's 'outward')."""
-    grid = sorted(float(e) for e in eps_grid)
-    if x_anchor is None:
-        return grid
-    return sorted(grid, key=lambda e: (abs(1.0 / e - x_anchor), e))
-
-
-def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
-                variant=None, measure_cold_start=False, anchor=None):
-    """Excited states of one pigment over a grid of ε_static (uniform: SRSH screening and PCM
-    together; ε_optical = min(n², ε_static)). Each point's SCF starts warm (:func:`sweep_guess`):
-    from the line through the two computed densities nearest in 1/ε, the variable in which both
-    the SRSH long-range fraction (1/ε) and the PCM screening factor (1 − 1/ε) are linear, or from
-    the one computed density while there is one. measure_cold_start: also converge the second point
-    from the default guess (one extra SCF) and record its cycles, to show what the warm start
-    saves. anchor: (1/ε, density) of the pigment's site calculation (:func:`sweep_anchor`),
-    which then serves as the point before the first, so every point starts warm. (Computing the
-    points nearest to the anchor first, :func:`sweep_order`, was measured against ascending ε:
-    HC4/6-31G, ε 2/4/8/16, site 8.33: 5/5/6/7 SCF cycles against 8/6/3/5. Starting each
-    response from the previous point's amplitudes was measured and is not done: HC4/6-31G took
-    12/8/8 products of 34/30/28 vectors against 8/7/7 of 32/31/31 from the default guess.)"""
-    from .engine import build_molecule, make_scf, run_scf
-    from .settings import qm_settings
-    rec = io.read_json(model_json)
-    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
-    points, dms, xs = [], [], []
-    if anchor is not None:
-        xs.append(float(anchor[0]))
-        dms.append(np.asarray(anchor[1]))
-        log.info("%s: sweep anchored on the site calculation at eps=%.3f", rec["pigment_id"],
-                 1.0 / xs[0])
-    t0 = time.perf_counter()
-    for k, eps in enumerate(sweep_order(eps_grid)):
-        s = qm_settings(qm, eps, min(n2, eps), omega, rec.get("nstates_default"))
-        t = time.perf_counter()
-        guess, dm = sweep_guess(dms, xs, eps)
-        res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
-                     s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
-                     keep_density=True)
-        cold = None
-        if k == 1 and measure_cold_start:
-            mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
-                                 rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
-            cold = run_scf(make_scf(mol, s))[2]
-        dms.append(np.asarray(res.pop("_dm")))
-        xs.append(1.0 / eps)
-        points.append({"eps_static": eps, "eps_optical": min(n2, eps),
-                       "scf_cycles": res["scf_cycles"], "scf_cycles_cold": cold,
-                       "warm_start": guess != "default", "scf_guess": guess,
-                       "response_products": res["response"]["products"],
-                       "time_s": round(time.perf_counter() - t, 2),
-                       "states": res["states"]})
-        log.info("%s eps=%.2f: %s (SCF %d cycles%s)", rec["pigment_id"], eps,
-                 ", ".join(f"{st['energy_ev']:.4f}" for st in res["states"]),
-                 res["scf_cycles"], "" if cold is None else f"; cold start {cold}")
-    for k, pt in enumerate(points):
-        pt["computed_as"] = k + 1  # the order of the warm starts; the table is by ε
-    points.sort(key=lambda pt: pt["eps_static"])
-    out = {"pigment_id": rec["pigment_id"], "ccd_code": rec["ccd_code"], "variant": variant,
-           "omega_bohr_inv": omega, "n2": n2, "points": points,
-           "time_s": round(time.perf_counter() - t0, 2)}
-    io.write_json(out_json, out)
-    return out
-
-
-def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=()):
-    """Long table of the ε sweeps and, for each measured target, the ε that reproduces it."""
-    from .aggregate import eps_for_target, sweep_rows
-    rows = []
-    for p in sweep_files:
-        rows += sweep_rows(io.read_json(p))
-    df = pd.DataFrame(rows)
-    io.write_tsv(out_tsv, df)
-    tg = pd.DataFrame([eps_for_target(df, t, dict((n, (a, b)) for n, a, b in pairs))
-                       for t in targets])
-    io.write_tsv(out_targets, tg)
-    log.info("eps sweep: %d rows; %d target(s)", len(df), len(tg))
-    return df, tg

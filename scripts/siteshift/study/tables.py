@@ -1,13 +1,20 @@
-"""Study tables: site energies, branch-to-branch shifts and variant-vs-reference shifts."""
+"""Study tables: site energies, branch-to-branch shifts, variant-vs-reference shifts, the
+environment table and the ε-sweep tables (pure functions, and the stages that write them)."""
 from __future__ import annotations
+
+import logging
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from .engine import NM_EV
-from .io import read_json
+from ..base import io
+from ..base.io import read_json
+from ..base.units import EV2CM1, NM_EV
+from ..structures.library import load_library
+from ..structures.reading import read_structure
 
-EV2CM1 = 8065.543937  # cm⁻¹ per eV (CODATA 2018 through h c / e)
+log = logging.getLogger("siteshift")
 
 SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
                 "wavelength_nm", "oscillator_strength", "transition_dipole_debye",
@@ -194,3 +201,82 @@ def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
                status="not bracketed by the scanned ε range" if len(eps) > 1 else
                "fewer than two sweep points")
     return out
+
+
+def environment_table(environment_files, out_tsv):
+    """One row per site: metrics, dielectric constants and each term's contribution."""
+    rows = []
+    for p in environment_files:
+        d = io.read_json(p)
+        variant = Path(p).parts[-4] if len(Path(p).parts) >= 4 else ""
+        row = {"variant": variant, "pigment_id": d["pigment_id"], "ccd_code": d["ccd_code"]}
+        row.update({k: v for k, v in d["metrics"].items()})
+        row.update({k: v for k, v in d["dielectric"].items() if k != "pigment_id"})
+        rows.append(row)
+    df = pd.DataFrame(rows)
+    io.write_tsv(out_tsv, df)
+    log.info("environment table: %d sites -> %s", len(df), out_tsv)
+    return df
+
+
+def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None,
+                 out_pairs=None, reference_structure=None, altloc="occupancy", library=None):
+    """Site-energy, branch-shift and variant-shift tables (and the pair list used)."""
+    sites = site_energies(result_files)
+    branches = branches or {}
+    pairs = [tuple(p) for p in branches.get("pairs", [])]
+    pair_rows = [{"name": n, "pigment_a": a, "pigment_b": b, "source": "config"}
+                 for n, a, b in pairs]
+    if branches.get("auto"):
+        known = {(a, b) for _n, a, b in pairs}
+        found = []
+        if reference_structure:
+            from ..structures.pairing import auto_pairs_by_superposition
+            atoms = read_structure(reference_structure, altloc)
+            found = [r for r in auto_pairs_by_superposition(atoms, library or load_library(),
+                                                            sorted(set(sites.ccd_code)))
+                     if (r["pigment_a"], r["pigment_b"]) not in known]
+            for r in found:
+                log.info("auto pair %s: chains %s/%s superposed on %d CA, RMSD %.3f A; partner "
+                         "%.2f A away after superposition", r["name"], r["chain_a"],
+                         r["chain_b"], r["n_ca"], r["rmsd_A"], r["distance_A"])
+            pair_rows += [{**r, "source": "superposition"} for r in found]
+            pairs += [(r["name"], r["pigment_a"], r["pigment_b"]) for r in found]
+        if not found:
+            extra = [p for p in auto_pairs(sorted(set(sites.pigment_id)))
+                     if (p[1], p[2]) not in known]
+            pairs += extra
+            pair_rows += [{"name": n, "pigment_a": a, "pigment_b": b,
+                           "source": "equal residue numbers"} for n, a, b in extra]
+    if out_pairs:
+        io.write_tsv(out_pairs, pd.DataFrame(pair_rows, columns=sorted(
+            {k for r in pair_rows for k in r}) or ["name", "pigment_a", "pigment_b", "source"]))
+    for _n, a, b in pairs:
+        for pid in (a, b):
+            if pid not in set(sites.pigment_id):
+                log.warning("branch pair pigment %s has no result in any variant", pid)
+    br = branch_shifts(sites, pairs)
+    vs = variant_shifts(sites, reference)
+    io.write_tsv(out_sites, sites)
+    io.write_tsv(out_branches, br)
+    io.write_tsv(out_variants, vs)
+    log.info("site energies: %d rows; branch shifts: %d rows; variant shifts: %d rows",
+             len(sites), len(br), len(vs))
+    if not vs.empty and "status" in vs:
+        for _i, r in vs[vs.status != "ok"].iterrows():
+            log.warning("variant %s: pigment %s %s", r.variant, r.pigment_id, r.status)
+    return sites, br, vs
+
+
+def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=()):
+    """Long table of the ε sweeps and, for each measured target, the ε that reproduces it."""
+    rows = []
+    for p in sweep_files:
+        rows += sweep_rows(io.read_json(p))
+    df = pd.DataFrame(rows)
+    io.write_tsv(out_tsv, df)
+    tg = pd.DataFrame([eps_for_target(df, t, dict((n, (a, b)) for n, a, b in pairs))
+                       for t in targets])
+    io.write_tsv(out_targets, tg)
+    log.info("eps sweep: %d rows; %d target(s)", len(df), len(tg))
+    return df, tg

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 
 from .qmmodel import ModelError, build_qm_model
-from .structure import classify, residues_of
+from .reading import classify, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import yaml
 
-DEFAULT_LIBRARY = Path(__file__).resolve().parents[2] / "config" / "pigments.yaml"
+DEFAULT_LIBRARY = Path(__file__).resolve().parents[3] / "config" / "pigments.yaml"
 FAMILIES = ("tetrapyrrole", "heme", "flavin", "retinal", "phenolic", "other")
 
 

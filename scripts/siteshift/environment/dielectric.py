@@ -4,7 +4,7 @@ The mapping is a transparent linear model, clipped to [eps_min, eps_max]:
 
     ε_static = clip(ε_min + Σ_k c_k · m_k)
 
-with metrics m_k from :mod:`siteshift.environment` and coefficients c_k from the study config.
+with metrics m_k from :mod:`siteshift.environment.metrics` and coefficients c_k from the study config.
 Each term is reported, so a user sees why a site got its value. Rationale of the defaults
 (continuum electrostatics practice: protein interiors ε ≈ 2–4, up to ≈ 10 or more near polar and
 charged groups and water; Schutz & Warshel, Proteins 44, 400 (2001); Li et al., JCTC 9, 2126

@@ -122,7 +122,7 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     """The QM model of one pigment residue.
 
     atom_names / atom_elements / atom_coords: the pigment's atoms as read (hydrogens in the input
-    are discarded and rebuilt from the CCD). ptype: its :class:`siteshift.library.PigmentType`.
+    are discarded and rebuilt from the CCD). ptype: its :class:`siteshift.structures.library.PigmentType`.
     """
     names, elements, ideal, adj = ccd_graph(code)
     elem_of = dict(zip(names, elements))

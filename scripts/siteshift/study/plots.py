@@ -8,9 +8,9 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
-from .aggregate import spectrum  # noqa: E402
-from .engine import NM_EV  # noqa: E402
-from .io import read_json  # noqa: E402
+from ..base.io import read_json  # noqa: E402
+from ..base.units import NM_EV  # noqa: E402
+from .tables import spectrum  # noqa: E402
 
 
 def _save(fig, out_png, out_svg=None):

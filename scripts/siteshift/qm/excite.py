@@ -1,0 +1,118 @@
+"""One SRSH-PCM excited-state calculation over plain data: element symbols and Å coordinates
+in, a JSON-ready dictionary out.
+
+- Vertical excitations: linear response (TDA by default, Hirata & Head-Gordon CPL 314, 291 (1999);
+  full TDDFT as option) with *non-equilibrium* solvation: the continuum's fast part responds with
+  ε_optical (Cammi & Mennucci, JCP 110, 9877 (1999)).
+- Two response paths share the same ground state: ``stock`` (PySCF's TDA/TDDFT,
+  :mod:`siteshift.qm.stock`) and ``fast`` (:mod:`siteshift.qm.fasttda`).
+"""
+from __future__ import annotations
+
+import platform
+import time
+from dataclasses import asdict
+
+import numpy as np
+import pyscf
+
+from ..base.units import AU2DEBYE, HARTREE2EV, NM_EV
+from .bands import assign_bands
+from .fasttda import fast_response
+from .scf import build_molecule, frontier_ev, make_scf, run_scf
+from .settings import EngineError, ExciteSettings
+from .stock import stock_response
+
+def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
+           log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False,
+           x0=None, keep_amplitudes=False):
+    """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
+
+    band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
+    name tetrapyrrole bands; without them the lowest state with f ≥ bright_threshold is flagged
+    "bright".
+    """
+    settings = settings or ExciteSettings()
+    settings.check()
+    log = log or (lambda s: None)
+    timings = {}
+    functional = settings.functional
+    log(f"settings: {asdict(settings)}")
+    log(f"functional: {functional.as_dict()}")
+    t0 = time.perf_counter()
+    mol = build_molecule(elements, coords_ang, charge, spin, settings.basis,
+                         settings.max_memory_mb)
+    mf = make_scf(mol, settings, functional)
+    mf, step, cycles = run_scf(mf, dm0=dm0, log=log)
+    timings["scf"] = time.perf_counter() - t0
+    log(f"SCF converged with step '{step}' in {timings['scf']:.1f} s")
+    homo, lumo = frontier_ev(mf)
+
+    t1 = time.perf_counter()
+    solver = settings.solver if mol.spin == 0 and settings.tda else "stock"
+    stats = {}
+    if solver == "fast":
+        e, osc, tdip, pairs, eps_used = fast_response(mf, settings, log=log, stats=stats, x0=x0)
+    else:
+        e, osc, tdip, pairs, eps_used = stock_response(mf, settings)
+    timings["response"] = time.perf_counter() - t1
+    log(f"response ({solver}) in {timings['response']:.1f} s; continuum ε used = {eps_used}")
+    if settings.solvated:
+        expected = settings.eps_static if settings.equilibrium else settings.eps_optical
+        if eps_used is None or abs(eps_used - expected) > 1e-12:
+            raise EngineError(f"the response continuum used ε={eps_used}, not the requested "
+                              f"{expected}")
+
+    coords = np.asarray(coords_ang, dtype=float).reshape(-1, 3)
+    states = []
+    for k in range(len(e)):
+        e_ev = float(e[k] * HARTREE2EV)
+        mu = np.asarray(tdip[k]) * AU2DEBYE
+        states.append({
+            "index": k + 1,
+            "energy_ev": e_ev,
+            "wavelength_nm": NM_EV / e_ev,
+            "oscillator_strength": float(osc[k]),
+            "transition_dipole_debye": [float(v) for v in mu],
+            "transition_dipole_norm_debye": float(np.linalg.norm(mu)),
+            "pairs": pairs[k],
+            "band": None,
+        })
+    assign_bands(states, coords, band_axes, bright_threshold)
+    result = {
+        "scf_energy_hartree": float(mf.e_tot),
+        "converged": bool(mf.converged),
+        "scf_step": step,
+        "scf_cycles": cycles,
+        "homo_ev": float(homo),
+        "lumo_ev": float(lumo),
+        "functional": functional.as_dict(),
+        "eps_static": settings.eps_static,
+        "eps_optical": settings.eps_optical,
+        "eps_screen": settings.eps_screen,
+        "eps_response_used": eps_used,
+        "solvation": ("none" if not settings.solvated else
+                      ("equilibrium" if settings.equilibrium else "nonequilibrium")),
+        "pcm_method": settings.pcm_method if settings.solvated else None,
+        "basis": settings.basis,
+        "nao": int(mol.nao),
+        "charge": int(charge),
+        "spin": int(spin),
+        "density_fitting": settings.density_fitting,
+        "auxbasis": (getattr(getattr(mf, "with_df", None), "auxbasis", None)
+                     or settings.auxbasis or ("auto" if settings.density_fitting else None)),
+        "grid_level": settings.grid_level,
+        "response": {"method": "TDA" if settings.tda else "TDDFT", "solver": solver,
+                     "nstates": settings.nstates, "products": stats.get("products"),
+                     "trial_vectors": stats.get("vectors"),
+                     "warm_start": bool(stats.get("warm_start", False))},
+        "states": states,
+        "timings_s": {k: round(v, 3) for k, v in timings.items()},
+        "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__,
+                     "numpy": np.__version__},
+    }
+    if keep_density:
+        result["_dm"] = mf.make_rdm1()
+    if keep_amplitudes and "xs" in stats:
+        result["_xs"] = stats["xs"]
+    return result
