@@ -23,10 +23,10 @@ rule tabulate_shifts:
         f"{LOGS}/tabulate_shifts/all.log",
     params:
         reference=REFERENCE,
-        branches=config.get("branches", {}),
+        branches=config["branches"],
         reference_structure=config["variants"][REFERENCE]["structure"],
-        altloc=config.get("altloc", "occupancy"),
-        pigments=config.get("pigments", {}),
+        altloc=config["altloc"],
+        pigments=config["pigments"],
     conda:
         "../config/envs/siteshift.yaml"
     script:
@@ -60,7 +60,7 @@ rule plot_study:
     log:
         f"{LOGS}/plot_study/all.log",
     params:
-        fwhm=config.get("plots", {}).get("spectrum_fwhm_ev", 0.15),
+        fwhm=config["plots"]["spectrum_fwhm_ev"],
         reference=REFERENCE,
     conda:
         "../config/envs/siteshift.yaml"

@@ -10,10 +10,13 @@ check_config(config, Path.cwd())
 
 RESULTS = "results"
 LOGS = "logs"
+# Snakemake's per-job timings (benchmark: files); the benchmark scripts' measured rows are
+# tracked apart, in scripts/benchmarks/records/
+BENCH = f"{RESULTS}/benchmarks"
 VARIANTS = sorted(config["variants"])
 REFERENCE = config["reference"]
-QM = config.get("qm", {})
-SWEEP = config.get("sweep", {}) or {}
+QM = config["qm"]
+SWEEP = config["sweep"]
 
 
 wildcard_constraints:
@@ -42,7 +45,7 @@ def inventory_rows(variant):
     path = checkpoints.take_inventory.get(variant=variant).output.tsv
     df = pd.read_csv(path, sep="\t", keep_default_na=False)
     df = df[df.status == "ok"]
-    codes = config.get("pigment_codes") or []
+    codes = config["pigment_codes"]
     if codes:
         df = df[df.ccd_code.isin(codes)]
     return df
@@ -70,7 +73,7 @@ def tuning_model(wildcards):
 
 
 def tuning_input(wildcards):
-    if QM.get("omega"):
+    if QM["omega"]:
         return []
     return f"{RESULTS}/tuning/{code_of(wildcards.variant, wildcards.pigment)}.json"
 
@@ -106,7 +109,7 @@ def qm_mem_mb(wildcards, input, attempt):
     """Memory scaled by model size: two density-fitted 3-index tensors (full and long range) of
     ~3 nao auxiliary functions, nao²/2 pairs, 8 bytes, plus 1.5 GB; at least the PySCF budget
     × 1.5; doubled on a retry."""
-    floor = QM.get("max_memory_mb", 4000) * 1.5
+    floor = QM["max_memory_mb"] * 1.5
     nao = _basis_estimate(getattr(input, "model", ""))
     est = 1500 + 2 * 3 * nao ** 3 / 2 * 8 / 1e6 if nao else floor
     return int(max(floor, est) * attempt)
@@ -119,7 +122,7 @@ def qm_runtime(wildcards, input, attempt):
 
 
 def sweep_pigments(variant):
-    chosen = SWEEP.get("pigments") or []
+    chosen = SWEEP["pigments"]
     return [p for p in pigments_of(variant) if not chosen or p in chosen]
 
 
@@ -134,6 +137,6 @@ def all_sweeps(wildcards):
 def optional_targets():
     """Outputs of optional stages that `all` asks for when they are switched on."""
     out = []
-    if SWEEP.get("enabled"):
+    if SWEEP["enabled"]:
         out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
     return out

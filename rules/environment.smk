@@ -7,12 +7,12 @@ rule measure_environment:
     log:
         f"{LOGS}/measure_environment/{{variant}}/{{pigment}}.log",
     benchmark:
-        "benchmarks/measure_environment/{variant}/{pigment}.tsv"
+        f"{BENCH}/measure_environment/{{variant}}/{{pigment}}.tsv"
     params:
-        altloc=config.get("altloc", "occupancy"),
-        pigments=config.get("pigments", {}),
-        environment=config.get("environment", {}),
-        dielectric=config.get("dielectric", {}),
+        altloc=config["altloc"],
+        pigments=config["pigments"],
+        environment=config["environment"],
+        dielectric=config["dielectric"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

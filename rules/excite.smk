@@ -6,8 +6,8 @@ rule tune_omega:
     log:
         f"{LOGS}/tune_omega/{{code}}.log",
     benchmark:
-        "benchmarks/tune_omega/{code}.tsv"
-    threads: max(QM.get("threads", 1), 2)  # every excitation waits on it; capped at --cores
+        f"{BENCH}/tune_omega/{{code}}.tsv"
+    threads: max(QM["threads"], 2)  # every excitation waits on it; capped at --cores
     resources:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
@@ -29,8 +29,8 @@ rule excite_pigment:
     log:
         f"{LOGS}/excite_pigment/{{variant}}/{{pigment}}.log",
     benchmark:
-        "benchmarks/excite_pigment/{variant}/{pigment}.tsv"
-    threads: QM.get("threads", 1)
+        f"{BENCH}/excite_pigment/{{variant}}/{{pigment}}.tsv"
+    threads: QM["threads"]
     resources:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,

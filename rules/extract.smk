@@ -9,13 +9,13 @@ rule extract_pigment:
     log:
         f"{LOGS}/extract_pigment/{{variant}}/{{pigment}}.log",
     benchmark:
-        "benchmarks/extract_pigment/{variant}/{pigment}.tsv"
+        f"{BENCH}/extract_pigment/{{variant}}/{{pigment}}.tsv"
     params:
-        altloc=config.get("altloc", "occupancy"),
-        pigments=config.get("pigments", {}),
-        overrides=config.get("pigment_overrides", {}),
-        cutoff=config.get("extract", {}).get("cluster_cutoff_A", 6.0),
-        axial_ligands=config.get("extract", {}).get("axial_ligands", False),
+        altloc=config["altloc"],
+        pigments=config["pigments"],
+        overrides=config["pigment_overrides"],
+        cutoff=config["extract"]["cluster_cutoff_A"],
+        axial_ligands=config["extract"]["axial_ligands"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -7,11 +7,11 @@ checkpoint take_inventory:
     log:
         f"{LOGS}/take_inventory/{{variant}}.log",
     benchmark:
-        "benchmarks/take_inventory/{variant}.tsv"
+        f"{BENCH}/take_inventory/{{variant}}.tsv"
     params:
-        altloc=config.get("altloc", "occupancy"),
-        pigments=config.get("pigments", {}),
-        overrides=config.get("pigment_overrides", {}),
+        altloc=config["altloc"],
+        pigments=config["pigments"],
+        overrides=config["pigment_overrides"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -7,7 +7,7 @@ rule mutate_structure:
     log:
         f"{LOGS}/mutate_structure/{{variant}}.log",
     benchmark:
-        "benchmarks/mutate_structure/{variant}.tsv"
+        f"{BENCH}/mutate_structure/{{variant}}.tsv"
     params:
         mutations=lambda wc: config["variants"][wc.variant]["mutations"],
     conda:

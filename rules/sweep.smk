@@ -4,22 +4,22 @@ rule sweep_epsilon:
         tuning=tuning_input,
         # the site calculation's density starts the sweep (sweep.anchor_on_site)
         site=lambda w: (f"{RESULTS}/{w.variant}/pigments/{w.pigment}/excited_states.json"
-                        if SWEEP.get("anchor_on_site", True) else []),
+                        if SWEEP["anchor_on_site"] else []),
     output:
         json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/eps_sweep.json",
     log:
         f"{LOGS}/sweep_epsilon/{{variant}}/{{pigment}}.log",
     benchmark:
-        "benchmarks/sweep_epsilon/{variant}/{pigment}.tsv"
-    threads: QM.get("threads", 1)
+        f"{BENCH}/sweep_epsilon/{{variant}}/{{pigment}}.tsv"
+    threads: QM["threads"]
     resources:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
         qm=QM,
-        grid=SWEEP.get("eps_static", [2.0, 4.0, 8.0, 16.0]),
-        n2=SWEEP.get("n2", 2.0),
-        measure_cold_start=SWEEP.get("measure_cold_start", False),
+        grid=SWEEP["eps_static"],
+        n2=SWEEP["n2"],
+        measure_cold_start=SWEEP["measure_cold_start"],
         cache=f"{RESULTS}/qm_cache",
     conda:
         "../config/envs/siteshift.yaml"
@@ -51,8 +51,8 @@ rule tabulate_sweep:
     log:
         f"{LOGS}/tabulate_sweep/all.log",
     params:
-        pairs=config.get("branches", {}).get("pairs", []),
-        targets=SWEEP.get("targets", []),
+        pairs=config["branches"]["pairs"],
+        targets=SWEEP["targets"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -10,6 +10,5 @@ sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 configure_threads(sm.threads)
 qm = sm.params.qm
-tune = qm.get("tune", {}) or {}
 tune_stage(sm.input.model, sm.output.json, qm_settings(qm), xatol=tune_xatol(qm),
-           bounds=tune.get("bounds", [0.1, 0.5]), include_anion=tune.get("include_anion", False))
+           bounds=qm["tune"]["bounds"], include_anion=qm["tune"]["include_anion"])

@@ -49,11 +49,11 @@ def main():
     ap.add_argument("--nstates", type=int, default=4)
     ap.add_argument("--study", default="levers", choices=["levers", "davidson"])
     ap.add_argument("--tsv", default=None,
-                    help="default: benchmarks/accuracy_levers.tsv (levers) or "
-                         "benchmarks/davidson_tolerance.tsv (davidson)")
+                    help="default: scripts/benchmarks/records/accuracy_levers.tsv (levers) or "
+                         "scripts/benchmarks/records/davidson_tolerance.tsv (davidson)")
     args = ap.parse_args()
-    args.tsv = args.tsv or ("benchmarks/accuracy_levers.tsv" if args.study == "levers"
-                            else "benchmarks/davidson_tolerance.tsv")
+    args.tsv = args.tsv or ("scripts/benchmarks/records/" + (
+        "accuracy_levers.tsv" if args.study == "levers" else "davidson_tolerance.tsv"))
     configure_threads(args.threads)
     el, xyz = system(args.system)
     base = ExciteSettings(basis=args.basis, grid_level=args.grid_level, eps_static=4.0,

@@ -299,7 +299,7 @@ def main():
                          "only (default: all)")
     ap.add_argument("--stock-refine", action="store_true",
                     help="check mode: continue with PySCF's Davidson from the fast vectors")
-    ap.add_argument("--tsv", default="benchmarks/response_speed.tsv")
+    ap.add_argument("--tsv", default="scripts/benchmarks/records/response_speed.tsv")
     args = ap.parse_args()
     prov = provenance()
     print(f"commit {prov['commit']}; matrix products on this machine now: "
@@ -355,7 +355,7 @@ def main():
                    **prov)
         rows.append(row)
         print(json.dumps(row, indent=1), flush=True)
-    out = Path(args.tsv)
+    out = ROOT / args.tsv
     out.parent.mkdir(parents=True, exist_ok=True)
     import pandas as pd
     df = pd.DataFrame(rows)

@@ -13,7 +13,7 @@ products, so the sweep stage does not do it).
 
 Prints one line per point and the mean SCF cycles per extra point (all points after the first SCF
 of the sweep: after the first point, or every point when anchored), and appends the rows to
-benchmarks/sweep_warm_start.tsv.
+scripts/benchmarks/records/sweep_warm_start.tsv.
 """
 from __future__ import annotations
 
@@ -47,7 +47,7 @@ def main():
                     help="ε_static of the site calculation that anchors the 'anchored' sweep")
     ap.add_argument("--starts", default="default,previous,extrapolated,anchored,outward")
     ap.add_argument("--response-warm", action="store_true")
-    ap.add_argument("--tsv", default="benchmarks/sweep_warm_start.tsv")
+    ap.add_argument("--tsv", default="scripts/benchmarks/records/sweep_warm_start.tsv")
     args = ap.parse_args()
     configure_threads(args.threads)
     el, xyz = system(args.system)

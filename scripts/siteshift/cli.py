@@ -105,16 +105,20 @@ def cmd_environment(args):
 
 
 def _settings(args):
-    from .qm.settings import ExciteSettings
+    """ExciteSettings from the options, through the same translation as the workflow's `qm:`
+    section (schema defaults, then the preset, then what the options set)."""
+    from .study.config import qm_settings
     es, eo = (1.0, 1.0) if args.gas else (args.eps_static, args.eps_optical)
     if es is None or eo is None:
         raise SystemExit("error: give --gas or both --eps-static and --eps-optical")
-    return ExciteSettings(alpha=args.alpha, omega=args.omega or 0.2, eps_static=es, eps_optical=eo,
-                          screen=args.screen, basis=args.basis, grid_level=args.grid_level,
-                          nstates=args.states, tda=not args.tddft, solver=args.solver,
-                          pcm_method=args.pcm, lebedev_order=args.lebedev_order,
-                          equilibrium=args.equilibrium, density_fitting=not args.no_df,
-                          max_memory_mb=args.max_memory)
+    qm = {"preset": args.preset, "alpha": args.alpha, "basis": args.basis,
+          "grid_level": args.grid_level, "pcm_method": args.pcm,
+          "lebedev_order": args.lebedev_order, "density_fitting": not args.no_df,
+          "max_memory_mb": args.max_memory, "screen": args.screen}
+    if hasattr(args, "solver"):  # response options (excite only)
+        qm.update(nstates=args.states, tda=not args.tddft, solver=args.solver,
+                  equilibrium=args.equilibrium)
+    return qm_settings(qm, es, eo, omega=args.omega)
 
 
 def cmd_excite(args):
@@ -144,12 +148,14 @@ def cmd_excite(args):
 def cmd_tune(args):
     from .qm.tuning import tune_omega
     from .base.io import write_json
+    from .base.defaults import preset
     el, xyz = read_xyz(args.xyz)
     args.gas, args.omega = True, None
     s = _settings(args)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
+    xatol = args.xatol if args.xatol is not None else preset(args.preset)["tune_xatol"]
     res = tune_omega(el, xyz, args.charge, args.spin, s, bounds=tuple(args.bounds),
-                     xatol=args.xatol, include_anion=args.anion, log=log)
+                     xatol=xatol, include_anion=args.anion, log=log)
     for r in res["evaluations"]:
         print(f"omega={r['omega_bohr_inv']:.4f}  J^2={r['j2_ev2']:.6f} eV^2  IP={r['ip_ev']:.4f}"
               f"  -HOMO={-r['homo_ev']:.4f}")
@@ -160,72 +166,124 @@ def cmd_tune(args):
 
 
 def _qm_args(p, excite=True):
+    """Options of one QM job; defaults from the study config's schema and the chosen preset
+    (siteshift.base.defaults), so a single job and the workflow agree."""
+    from .base.defaults import QM_PRESETS, default
+    qm = default("qm")
     p.add_argument("xyz", help="XYZ file (Å)")
-    p.add_argument("--charge", type=int, default=0)
-    p.add_argument("--spin", type=int, default=0, help="2S: number of unpaired electrons")
-    p.add_argument("--alpha", type=float, default=0.2, help="short-range exact exchange")
-    p.add_argument("--basis", default="def2-svp")
-    p.add_argument("--grid-level", type=int, default=3)
-    p.add_argument("--states", type=int, default=4)
-    p.add_argument("--screen", choices=["static", "optical"], default="static")
-    p.add_argument("--pcm", choices=["IEF-PCM", "C-PCM"], default="IEF-PCM")
-    p.add_argument("--lebedev-order", type=int, default=17)
-    p.add_argument("--solver", choices=["fast", "stock"], default="fast")
-    p.add_argument("--tddft", action="store_true", help="full TDDFT instead of TDA")
-    p.add_argument("--equilibrium", action="store_true", help="equilibrium solvation")
+    p.add_argument("--charge", type=int, default=0, help="total charge (e); default 0")
+    p.add_argument("--spin", type=int, default=0,
+                   help="2S, the number of unpaired electrons (multiplicity − 1); default 0")
+    p.add_argument("--preset", choices=sorted(QM_PRESETS), default=qm["preset"],
+                   help="basis, grids, state count and ω tolerance unless set below: " + "; ".join(
+                       f"{k}: {v['basis']}, grid {v['grid_level']}, Lebedev "
+                       f"{v['lebedev_order']}" for k, v in QM_PRESETS.items())
+                   + f" (default {qm['preset']})")
+    p.add_argument("--alpha", type=float, default=qm["alpha"],
+                   help=f"short-range exact-exchange fraction α (default {qm['alpha']})")
+    p.add_argument("--basis", help="basis set (default: the preset's)")
+    p.add_argument("--grid-level", type=int, help="PySCF DFT grid level 0-9 (default: preset)")
+    p.add_argument("--lebedev-order", type=int,
+                   help="Lebedev order of the PCM atom spheres (default: preset)")
+    p.add_argument("--screen", choices=["static", "optical"], default=qm["screen"],
+                   help=f"which ε sets the long-range exchange 1/ε (default {qm['screen']})")
+    p.add_argument("--pcm", choices=["IEF-PCM", "C-PCM"], default=qm["pcm_method"],
+                   help=f"continuum model (default {qm['pcm_method']})")
     p.add_argument("--no-df", action="store_true", help="no density fitting")
-    p.add_argument("--max-memory", type=int, default=4000, help="MB")
-    p.add_argument("--json", help="write the result as JSON")
-    p.add_argument("-v", "--verbose", action="store_true", help="progress on stderr")
+    p.add_argument("--max-memory", type=int, default=qm["max_memory_mb"],
+                   help=f"PySCF memory budget in MB (default {qm['max_memory_mb']})")
+    p.add_argument("--json", help="write the result as JSON to this file")
     if excite:
+        p.add_argument("--states", type=int,
+                       help="excited states (default: the preset's, else 4)")
+        p.add_argument("--solver", choices=["fast", "stock"], default=qm["solver"],
+                       help=f"response solver (default {qm['solver']})")
+        p.add_argument("--tddft", action="store_true", help="full TDDFT instead of TDA")
+        p.add_argument("--equilibrium", action="store_true",
+                       help="equilibrium solvation of the excitations (ε_static)")
         p.add_argument("--gas", action="store_true", help="gas phase (ε = 1)")
-        p.add_argument("--eps-static", type=float)
-        p.add_argument("--eps-optical", type=float)
+        p.add_argument("--eps-static", type=float, help="ε of the ground-state continuum")
+        p.add_argument("--eps-optical", type=float,
+                       help="ε of the continuum during the excitation (n²)")
         g = p.add_mutually_exclusive_group()
-        g.add_argument("--omega", type=float, help="ω in bohr⁻¹")
+        g.add_argument("--omega", type=float, help="range separation ω in bohr⁻¹")
         g.add_argument("--tune", action="store_true", help="tune ω first (gas phase)")
 
 
-def main(argv=None):
+def _common(p):
+    """Options every subcommand takes (after the subcommand, or before it)."""
+    p.add_argument("--library", default=argparse.SUPPRESS,
+                   help="pigment library YAML (default: config/pigments.yaml)")
+    p.add_argument("--threads", type=int, default=argparse.SUPPRESS,
+                   help="OpenMP threads for PySCF (default: all cores; BLAS stays single)")
+    p.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
+                   help="progress on stderr")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The command's parser (every default from the study config's schema and presets)."""
+    from .base.defaults import default
     ap = argparse.ArgumentParser(prog="siteshift", description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--library", help="pigment library YAML (default: config/pigments.yaml)")
+    _common(ap)
+    ap.set_defaults(library=None, threads=None, verbose=False)
     sub = ap.add_subparsers(dest="cmd", required=True)
-    p = sub.add_parser("inventory", help="list the pigments of a structure")
-    p.add_argument("structure")
-    p.add_argument("--altloc", default="occupancy")
-    p.add_argument("--json")
-    p.add_argument("--tsv")
+    altloc = default("altloc")
+
+    def add(name, help_):
+        p = sub.add_parser(name, help=help_, description=help_)
+        _common(p)
+        return p
+
+    p = add("inventory", "list the pigments of a structure")
+    p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")
+    p.add_argument("--altloc", default=altloc,
+                   help=f"altloc policy: occupancy, first, or a letter (default {altloc})")
+    p.add_argument("--json", help="write the inventory as JSON to this file")
+    p.add_argument("--tsv", help="write the inventory as TSV to this file")
     p.set_defaults(func=cmd_inventory)
-    p = sub.add_parser("extract", help="QM model and environment cluster of one pigment")
-    p.add_argument("structure")
-    p.add_argument("pigment")
-    p.add_argument("--outdir", required=True)
-    p.add_argument("--altloc", default="occupancy")
-    p.add_argument("--cutoff", type=float, default=6.0, help="cluster cutoff (Å)")
+    p = add("extract", "QM model and environment cluster of one pigment")
+    p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")
+    p.add_argument("pigment", help="pigment id, e.g. A_BCL302")
+    p.add_argument("--outdir", required=True, help="folder for qm_model.xyz/.json, cluster.pdb")
+    p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
+    cut = default("extract.cluster_cutoff_A")
+    p.add_argument("--cutoff", type=float, default=cut,
+                   help=f"cluster cutoff in Å (default {cut})")
     p.add_argument("--axial-ligands", action="store_true",
                    help="add metal-coordinating side chains to the QM model")
     p.set_defaults(func=cmd_extract)
-    p = sub.add_parser("environment", help="environment metrics and dielectrics")
-    p.add_argument("structure")
-    p.add_argument("--pigment")
-    p.add_argument("--altloc", default="occupancy")
-    p.add_argument("--mode", choices=["local", "uniform"], default="local")
-    p.add_argument("--exposed-medium", choices=["water", "vacuum"], default="water")
-    p.add_argument("--json")
+    p = add("environment", "environment metrics and dielectrics")
+    p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")
+    p.add_argument("--pigment", help="only this pigment id (default: all)")
+    p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
+    diel = default("dielectric")
+    p.add_argument("--mode", choices=["local", "uniform"], default=diel["mode"],
+                   help=f"dielectric model (default {diel['mode']})")
+    p.add_argument("--exposed-medium", choices=["water", "vacuum"],
+                   default=diel["exposed_medium"],
+                   help=f"what faces the exposed surface (default {diel['exposed_medium']})")
+    p.add_argument("--json", help="write the metrics and dielectrics as JSON to this file")
     p.set_defaults(func=cmd_environment)
-    p = sub.add_parser("excite", help="one SRSH-PCM excited-state calculation")
+    p = add("excite", "one SRSH-PCM excited-state calculation")
     _qm_args(p)
     p.set_defaults(func=cmd_excite)
-    p = sub.add_parser("tune", help="optimal tuning of ω (gas phase)")
+    p = add("tune", "optimal tuning of ω (gas phase)")
     _qm_args(p, excite=False)
-    p.add_argument("--bounds", type=float, nargs=2, default=[0.05, 0.6])
-    p.add_argument("--xatol", type=float, default=0.01)
-    p.add_argument("--anion", action="store_true", help="J² with the anion term")
+    tune = default("qm.tune")
+    p.add_argument("--bounds", type=float, nargs=2, default=tune["bounds"],
+                   metavar=("LOW", "HIGH"),
+                   help=f"ω search interval in bohr⁻¹ (default {tune['bounds']})")
+    p.add_argument("--xatol", type=float,
+                   help="ω tolerance in bohr⁻¹ (default: the preset's)")
+    p.add_argument("--anion", action="store_true", default=tune["include_anion"],
+                   help="J² with the anion term")
     p.set_defaults(func=cmd_tune)
-    ap.add_argument("--threads", type=int, default=None,
-                    help="OpenMP threads for PySCF (default: all cores; BLAS stays single)")
-    args = ap.parse_args(argv)
+    return ap
+
+
+def main(argv=None):
+    args = build_parser().parse_args(argv)
     if args.cmd in ("excite", "tune"):
         import os
         from .qm.settings import configure_threads

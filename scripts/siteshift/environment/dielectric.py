@@ -23,15 +23,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-DEFAULT_COEFFICIENTS = {
-    "burial": 2.0,
-    "exposure": 10.0,
-    "n_polar_atoms": 0.1,
-    "n_charged_groups": 0.5,
-    "n_waters": 0.15,
-    "hydropathy": -0.1,
-    "packing_density": -1.0,
-}
+from ..base.defaults import default
+
+_DIEL = default("dielectric")  # the study config schema's defaults (siteshift.base.defaults)
+DEFAULT_COEFFICIENTS = _DIEL["coefficients"]
 
 
 class DielectricError(ValueError):
@@ -40,12 +35,12 @@ class DielectricError(ValueError):
 
 @dataclass
 class DielectricModel:
-    mode: str = "local"                  # "local" (metrics) or "uniform"
-    eps_min: float = 2.0
-    eps_max: float = 20.0
-    eps_uniform: float = 4.0             # ε_static in uniform mode
-    eps_optical: float = 2.0             # n² of the medium
-    exposed_medium: str = "water"        # "water" or "vacuum": what faces the exposed surface
+    mode: str = _DIEL["mode"]            # "local" (metrics) or "uniform"
+    eps_min: float = _DIEL["eps_min"]
+    eps_max: float = _DIEL["eps_max"]
+    eps_uniform: float = _DIEL["eps_uniform"]      # ε_static in uniform mode
+    eps_optical: float = _DIEL["eps_optical"]      # n² of the medium
+    exposed_medium: str = _DIEL["exposed_medium"]  # "water" or "vacuum": faces the exposed surface
     coefficients: dict = field(default_factory=lambda: dict(DEFAULT_COEFFICIENTS))
     overrides: dict = field(default_factory=dict)   # pigment_id -> {eps_static, eps_optical}
 

@@ -13,6 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
+from ..base.defaults import default
+
 #: Kyte–Doolittle hydropathy index (J. Mol. Biol. 157, 105 (1982), Table 2)
 KYTE_DOOLITTLE = {
     "ALA": 1.8, "ARG": -4.5, "ASN": -3.5, "ASP": -3.5, "CYS": 2.5, "GLN": -3.5, "GLU": -3.5,
@@ -107,18 +109,21 @@ def gaussian_density(points, coords, radii, sigma=0.93):
     return 1.0 - np.prod(1.0 - rho_i, axis=1)
 
 
+_ENV = default("environment")  # the study config schema's defaults (siteshift.base.defaults)
+
+
 @dataclass
 class EnvironmentSettings:
-    shells_A: tuple = (4.0, 6.0, 8.0)
-    contact_cutoff_A: float = 4.5        # residue contacts for hydropathy weighting
-    polar_cutoff_A: float = 4.0          # N/O atoms counted as polar contacts
+    shells_A: tuple = (4.0, 6.0, 8.0)    # heavy-atom counts within these distances
+    contact_cutoff_A: float = _ENV["contact_cutoff_A"]   # residue contacts weighting hydropathy
+    polar_cutoff_A: float = _ENV["polar_cutoff_A"]       # N/O atoms counted as polar contacts
     ligand_cutoff_A: float = 2.6         # closer than this: a bonded ligand (e.g. axial His)
-    charge_cutoff_A: float = 7.0         # charged groups counted
-    water_cutoff_A: float = 6.0          # water oxygens counted
-    probe_A: float = 1.4                 # SASA probe (water)
-    sasa_points: int = 480
-    density_sigma: float = 0.93          # Li et al. 2013
-    hydropathy_scale: str = "kyte_doolittle"
+    charge_cutoff_A: float = _ENV["charge_cutoff_A"]     # charged groups counted
+    water_cutoff_A: float = _ENV["water_cutoff_A"]       # water oxygens counted
+    probe_A: float = _ENV["probe_A"]                     # SASA probe (water)
+    sasa_points: int = _ENV["sasa_points"]
+    density_sigma: float = _ENV["density_sigma"]         # Li et al. 2013
+    hydropathy_scale: str = _ENV["hydropathy_scale"]
 
 
 def site_metrics(pig_coords, pig_elements, env, settings: EnvironmentSettings | None = None):

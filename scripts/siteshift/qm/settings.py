@@ -5,8 +5,11 @@ from dataclasses import dataclass
 
 from pyscf import lib
 
+from ..base.defaults import DEFAULT_NSTATES, FALLBACK_OMEGA, default, preset
 from .functional import SRSH
 
+_QM = default("qm")
+_FULL = preset("full")
 PCM_METHODS = ("IEF-PCM", "C-PCM")
 
 
@@ -30,36 +33,38 @@ class EngineError(RuntimeError):
 class ExciteSettings:
     """Every setting of one SRSH-PCM excited-state calculation (defaults: full-accuracy preset)."""
 
-    alpha: float = 0.2
-    omega: float = 0.2                   # bohr⁻¹
+    # defaults: the study config's schema and the "full" preset (siteshift.base.defaults)
+    alpha: float = _QM["alpha"]
+    omega: float = FALLBACK_OMEGA        # bohr⁻¹
     eps_static: float = 1.0              # ground-state continuum (1 = gas phase)
     eps_optical: float = 1.0             # fast (electronic) continuum for vertical excitations
-    screen: str = "static"               # which ε sets α+β = 1/ε: "static" or "optical"
-    basis: str = "def2-svp"
-    auxbasis: str | None = None          # None: PySCF's automatic JK-fitting basis
-    density_fitting: bool = True
-    grid_level: int = 3
-    pcm_method: str = "IEF-PCM"
-    lebedev_order: int = 17              # surface points per atom sphere: 17 → 110
-    nstates: int = 4
-    tda: bool = True
-    equilibrium: bool = False            # equilibrium solvation of the excitations (ε_static)
-    solver: str = "fast"                 # "fast" (MO-basis TDA) or "stock" (PySCF TDA/TDDFT)
+    screen: str = _QM["screen"]          # which ε sets α+β = 1/ε: "static" or "optical"
+    basis: str = _FULL["basis"]
+    auxbasis: str | None = _QM["auxbasis"]   # None: PySCF's automatic JK-fitting basis
+    density_fitting: bool = _QM["density_fitting"]
+    grid_level: int = _FULL["grid_level"]
+    pcm_method: str = _QM["pcm_method"]
+    lebedev_order: int = _FULL["lebedev_order"]   # surface points per atom sphere: 17 → 110
+    nstates: int = DEFAULT_NSTATES
+    tda: bool = _QM["tda"]
+    equilibrium: bool = _QM["equilibrium"]   # equilibrium solvation of the excitations (ε_static)
+    solver: str = _QM["solver"]          # "fast" (MO-basis TDA) or "stock" (PySCF TDA/TDDFT)
     conv_tol: float = 1e-9               # SCF energy, Hartree
     # Davidson residual norm: the stock path's (PySCF's TDA stops at sqrt(conv_tol), 3.2e-4 as
     # siteshift runs it; 3e-3 by PySCF's default). Measured on 4'-hydroxycinnamic acid/def2-SVP,
     # grid 1, float32 tensors, fitted PCM, frozen core, 4 states, against 1e-6 (11 products):
     # 3e-4 moves E by 0.0016 meV and f by 3e-5 in 7 products; 1e-4 0.0016 meV, 6e-6, 8 products;
-    # 1e-3 0.0019 meV, 3e-5, 6 products (benchmarks/davidson_tolerance.tsv). The 0.0016 meV,
-    # the same at every tolerance, is of the size of the float32 (vv) exchange's rounding.
-    response_tol: float = 3e-4
-    max_memory_mb: int = 4000
-    df_storage: str = "float32"          # fitted tensors in memory: "float32", "float64" or "pyscf"
-    df_pair_tol: float = 1e-12           # Schwarz bound of the AO pairs kept (dfjk.PAIR_TOL; 0: all)
-    response_grid_level: int | None = None   # XC-kernel grid of the fast TDA (None: SCF grid)
-    occ_window_ev: float | None = None   # fast TDA: occupied orbitals within this of the HOMO
-    vir_window_ev: float | None = None   # fast TDA: virtual orbitals within this of the LUMO
-    pcm_fit: bool = False                # PCM potentials from the fitted density (in-core DF only)
+    # 1e-3 0.0019 meV, 3e-5, 6 products (scripts/benchmarks/records/davidson_tolerance.tsv).
+    # The 0.0016 meV, the same at every tolerance, is of the size of the float32 (vv) exchange's
+    # rounding.
+    response_tol: float = _QM["response_tol"]
+    max_memory_mb: int = _QM["max_memory_mb"]
+    df_storage: str = _QM["df_storage"]  # fitted tensors in memory: "float32", "float64", "pyscf"
+    df_pair_tol: float = _QM["df_pair_tol"]  # Schwarz bound of the AO pairs kept (0: all)
+    response_grid_level: int | None = _QM["response_grid_level"]  # fast TDA XC grid (None: SCF's)
+    occ_window_ev: float | None = _QM["occ_window_ev"]  # fast TDA: occupied within this of HOMO
+    vir_window_ev: float | None = _QM["vir_window_ev"]  # fast TDA: virtual within this of LUMO
+    pcm_fit: bool = _QM["pcm_fit"]       # PCM potentials from the fitted density (in-core DF)
 
     def check(self) -> None:
         if self.eps_static < 1.0 or self.eps_optical < 1.0:

@@ -7,23 +7,29 @@ import time
 import numpy as np
 import pyscf
 
+from ..base.defaults import default, preset
 from ..base.units import HARTREE2EV
 from .functional import SRSH
 from .scf import build_molecule, frontier_ev, make_scf, run_scf
 from .settings import ExciteSettings
 
 def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
-               bounds=(0.05, 0.6), xatol=0.01, include_anion=False, log=None):
+               bounds=None, xatol=None, include_anion=None, log=None):
     """Gas-phase optimal tuning of ω: minimise J²(ω) = Σ_i (ε_HOMO(N+i) + IP(N+i))².
 
     Stein, Kronik, Baer, JACS 131, 2818 (2009) (i = 0); Stein et al., PRL 105, 266802 (2010)
     (i = 0, 1 with the anion). α is held fixed and α+β = 1 (gas phase). Returns a dictionary with
-    the tuned ω (bohr⁻¹), J at the optimum (eV), and every evaluation of the curve.
+    the tuned ω (bohr⁻¹), J at the optimum (eV), and every evaluation of the curve. bounds, xatol
+    and include_anion default to the study config's (`qm.tune`, the full preset's tolerance).
     """
     from scipy.optimize import minimize_scalar
 
     settings = settings or ExciteSettings()
     log = log or (lambda s: None)
+    tune = default("qm.tune")
+    bounds = tuple(tune["bounds"] if bounds is None else bounds)
+    xatol = float(preset("full")["tune_xatol"] if xatol is None else xatol)
+    include_anion = bool(tune["include_anion"] if include_anion is None else include_anion)
     mol0 = build_molecule(elements, coords_ang, charge, spin, settings.basis,
                           settings.max_memory_mb)
     mol_c = build_molecule(elements, coords_ang, charge + 1, (spin + 1) if spin == 0 else spin - 1,

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from ..base import io
+from ..base.defaults import default
 from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.excite import excite
@@ -23,6 +24,8 @@ from ..structures.qmmodel import QMModel
 from ..structures.reading import StructureError, read_structure
 
 log = logging.getLogger("siteshift")
+_ALTLOC = default("altloc")
+_CUTOFF = default("extract.cluster_cutoff_A")
 
 
 def setup_logging(path=None, level=logging.INFO):
@@ -42,7 +45,7 @@ def setup_logging(path=None, level=logging.INFO):
     logging.getLogger("MDAnalysis").setLevel(logging.WARNING)
 
 
-def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc="occupancy",
+def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALTLOC,
                     overrides=None):
     """Write the inventory table (and JSON) of one structure; return the rows."""
     library = library or load_library()
@@ -98,7 +101,7 @@ def _write_atoms(ag, path):
 
 
 def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, library=None,
-                  altloc="occupancy", cutoff_A=6.0, overrides=None, axial_ligands=False):
+                  altloc=_ALTLOC, cutoff_A=_CUTOFF, overrides=None, axial_ligands=False):
     """QM model (XYZ + JSON record) and environment cluster (PDB) of one pigment.
 
     axial_ligands: add the side chains coordinating the pigment's metal to the QM model.
@@ -142,7 +145,7 @@ def measure_site(atoms, res, library, settings: EnvironmentSettings | None = Non
 
 
 def environment_stage(structure, model_json, out_json, settings: EnvironmentSettings,
-                      model: DielectricModel, altloc="occupancy", library=None):
+                      model: DielectricModel, altloc=_ALTLOC, library=None):
     """Metrics of one site and its dielectric assignment (JSON)."""
     library = library or load_library()
     rec = io.read_json(model_json)
@@ -169,18 +172,18 @@ def environment_stage(structure, model_json, out_json, settings: EnvironmentSett
     return out
 
 
-def tune_stage(model_json, out_json, settings: ExciteSettings, xatol=0.01, bounds=(0.05, 0.6),
-               include_anion=False):
+def tune_stage(model_json, out_json, settings: ExciteSettings, xatol=None, bounds=None,
+               include_anion=None):
     rec = io.read_json(model_json)
     log.info("tuning omega for %s on %s (%s, alpha=%.3f, gas phase)", rec["ccd_code"],
              rec["pigment_id"], settings.basis, settings.alpha)
     res = tune_omega(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
-                     settings, bounds=tuple(bounds), xatol=xatol, include_anion=include_anion,
+                     settings, bounds=bounds, xatol=xatol, include_anion=include_anion,
                      log=log.info)
     res.update(ccd_code=rec["ccd_code"], tuned_on=rec["pigment_id"])
     if res["at_bound"]:
         log.warning("tuned omega %.4f lies at the search bound %s; widen qm.tune.bounds",
-                    res["omega_bohr_inv"], bounds)
+                    res["omega_bohr_inv"], res["bounds_bohr_inv"])
     io.write_json(out_json, res)
     log.info("tuned omega = %.4f bohr^-1 (J = %.4f eV) after %d evaluations in %.1f s",
              res["omega_bohr_inv"], res["j_ev"], res["n_evaluations"], res["time_s"])

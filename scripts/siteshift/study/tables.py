@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..base import io
+from ..base.defaults import default
 from ..base.io import read_json
 from ..base.units import EV2CM1, NM_EV
 from ..structures.library import load_library
@@ -220,7 +221,7 @@ def environment_table(environment_files, out_tsv):
 
 
 def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None,
-                 out_pairs=None, reference_structure=None, altloc="occupancy", library=None):
+                 out_pairs=None, reference_structure=None, altloc=default("altloc"), library=None):
     """Site-energy, branch-shift and variant-shift tables (and the pair list used)."""
     sites = site_energies(result_files)
     branches = branches or {}
