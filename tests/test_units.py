@@ -7,7 +7,8 @@ import pytest
 from siteshift.qm.bands import assign_bands, axis_cosines
 from siteshift.qm.settings import EngineError
 from siteshift.base.io import atomic_write_text, stable_hash, write_json
-from siteshift.study.config import QM_PRESETS, qm_settings
+from siteshift.base.defaults import QM_PRESETS
+from siteshift.study.config import qm_settings
 
 
 def _state(e, f, d):

@@ -68,7 +68,8 @@ def default(path: str):
 
 def fill(section: dict | None, path: str) -> dict:
     """A copy of a config section with every key it lacks filled from the schema's defaults
-    (nested sections too), as Snakemake's ``validate`` fills the workflow's config."""
+    (nested sections too), as Snakemake's ``validate`` fills the workflow's config. A key given
+    as None (YAML null) takes the default too."""
     return _merge(default(path), section or {})
 
 
@@ -76,6 +77,8 @@ def _merge(base, over):
     if isinstance(base, dict) and isinstance(over, dict):
         out = dict(base)
         for k, v in over.items():
+            if v is None and base.get(k) is not None:
+                continue
             out[k] = _merge(base.get(k), v) if k in base else copy.deepcopy(v)
         return out
     return copy.deepcopy(over)
