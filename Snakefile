@@ -18,6 +18,7 @@ include: "rules/environment.smk"
 include: "rules/excite.smk"
 include: "rules/aggregate.smk"
 include: "rules/sweep.smk"
+include: "rules/electrostatics.smk"
 
 
 rule all:

@@ -1,7 +1,7 @@
 rule tabulate_shifts:
     input:
         inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
-        excitations=all_excitations,
+        excitations=all_site_results,
     output:
         sites=report(
             f"{RESULTS}/tables/site_energies.tsv",

@@ -17,6 +17,7 @@ VARIANTS = sorted(config["variants"])
 REFERENCE = config["reference"]
 QM = config["qm"]
 SWEEP = config["sweep"]
+ELECTRO = config["electrostatics"]
 
 
 wildcard_constraints:
@@ -134,9 +135,75 @@ def all_sweeps(wildcards):
     ]
 
 
+def all_site_results(wildcards):
+    """Every site calculation the site tables read: continuum-only, and embedded when the
+    electrostatics stage is on."""
+    return all_excitations(wildcards) + (all_embedded(wildcards) if ELECTRO["enabled"] else [])
+
+
+def all_embedded(wildcards):
+    return [
+        f"{RESULTS}/{v}/pigments/{p}/excited_embedded.json"
+        for v in VARIANTS
+        for p in pigments_of(v)
+    ]
+
+
+def scan_pigments():
+    """Reference pigments the mutation scan covers: those listed, else every pigment of a
+    configured branch pair, else every pigment."""
+    chosen = ELECTRO["scan"]["pigments"]
+    pids = pigments_of(REFERENCE)
+    if chosen:
+        return [p for p in pids if p in chosen]
+    paired = {x for _n, a, b in config["branches"]["pairs"] for x in (a, b)}
+    return [p for p in pids if p in paired] or pids
+
+
+def all_scans(wildcards):
+    return [f"{RESULTS}/{REFERENCE}/pigments/{p}/mutation_scan.json" for p in scan_pigments()]
+
+
+def charge_fit_model(wildcards):
+    """The QM model a pigment type's charges are fitted on: its first copy found in the
+    reference variant (else in any variant)."""
+    for v in [REFERENCE] + [x for x in VARIANTS if x != REFERENCE]:
+        df = all_inventory_rows(v)
+        ids = list(df[df.ccd_code == wildcards.code].pigment_id)
+        if ids:
+            return f"{RESULTS}/{v}/pigments/{ids[0]}/qm_model.json"
+    raise ValueError(f"no pigment of type {wildcards.code} in any variant")
+
+
+def charge_fit_tuning(wildcards):
+    """The tuned ω of the type when the study tunes it, else none (the configured ω)."""
+    tuned = set(config["pigment_codes"]) or None
+    if QM["omega"] or (tuned is not None and wildcards.code not in tuned):
+        return []
+    return f"{RESULTS}/tuning/{wildcards.code}.json"
+
+
+def pigment_charge_fits(wildcards):
+    """ESP charges of every library pigment type present in the variant (all copies carry
+    charges in each other's environment, computed or not)."""
+    codes = sorted(set(all_inventory_rows(wildcards.variant).ccd_code))
+    return [f"{RESULTS}/charges/pigments/{c}.json" for c in codes]
+
+
+def all_inventory_rows(variant):
+    """Pigment rows with a usable QM model (status ok), whatever pigment_codes selects."""
+    import pandas as pd
+
+    path = checkpoints.take_inventory.get(variant=variant).output.tsv
+    df = pd.read_csv(path, sep="\t", keep_default_na=False)
+    return df[df.status == "ok"]
+
+
 def optional_targets():
     """Outputs of optional stages that `all` asks for when they are switched on."""
     out = []
+    if ELECTRO["enabled"]:
+        out += [f"{RESULTS}/tables/electrostatics.tsv", f"{RESULTS}/plots/residue_contributions.png"]
     if SWEEP["enabled"]:
         out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
     return out

@@ -37,6 +37,8 @@ rule excite_pigment:
     params:
         qm=QM,
         cache=f"{RESULTS}/qm_cache",
+        # the electrostatics stage decomposes shifts with the relaxed difference densities
+        relaxed=ELECTRO["enabled"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -10,4 +10,4 @@ setup_logging(sm.log[0])
 configure_threads(sm.threads)
 excite_stage(sm.input.model, sm.input.environment, sm.output.json, sm.params.qm,
              tuning_json=sm.input.tuning or None, cache_dir=sm.params.cache,
-             variant=sm.wildcards.variant)
+             variant=sm.wildcards.variant, relaxed=sm.params.relaxed)

@@ -16,6 +16,7 @@ def _tiny_config(root, **qm):
     }
     cfg["qm"].update({"preset": "demo", "basis": "sto-3g", "grid_level": 0, "lebedev_order": 5,
                       "nstates": 2, "omega": 0.25, **qm})
+    cfg["electrostatics"]["scan"].update({"mutations": ["A:I6E"], "radius_A": 0.0})
     return cfg
 
 
@@ -64,6 +65,7 @@ def test_bad_config_stops_before_jobs(root, tmp_path):
 
 def test_tables_have_sensible_contents(study):
     sites = pd.read_csv(study / "results/tables/site_energies.tsv", sep="\t")
+    sites = sites[sites["mode"] == "continuum"]   # embedded rows: test_electrostatics_outputs
     assert set(sites.variant) == {"wt", "A_I6E"}
     assert set(sites.pigment_id) == {"A_HC4101", "B_HC4101"}
     # HC4 (neutral p-coumaric acid) absorbs in the UV; STO-3G puts the bright π→π* high, so the
@@ -79,6 +81,7 @@ def test_tables_have_sensible_contents(study):
     row = br[(br.variant == "wt") & (br.band == "S1")].iloc[0]
     assert row.delta_ev != 0 and abs(row.delta_ev) < 1.0
     vs = pd.read_csv(study / "results/tables/variant_shifts.tsv", sep="\t")
+    vs = vs[vs["mode"] == "continuum"]   # embedded rows: see test_electrostatics_outputs
     b = vs[(vs.pigment_id == "B_HC4101")]
     a = vs[(vs.pigment_id == "A_HC4101")]
     assert b.same_qm_inputs.all() and (b.delta_ev == 0).all()
@@ -100,6 +103,31 @@ def test_outputs_for_inspection(study):
     w = json.loads((study / "results/wt/pigments/B_HC4101/excited_states.json").read_text())
     assert m["qm_hash"] == w["qm_hash"]
     assert {m["cache"], w["cache"]} == {"computed", "reused"}
+
+
+def test_electrostatics_outputs(study):
+    el = pd.read_csv(study / "results/tables/electrostatics.tsv", sep="\t")
+    assert set(el.variant) == {"wt", "A_I6E"} and set(el.pigment_id) == {"A_HC4101", "B_HC4101"}
+    # first order (relaxed difference density) tracks the embedded calculation's own shift
+    assert (el.first_order_minus_full_mev.abs() <= 0.2 * el.shift_full_mev.abs() + 2.0).all()
+    # the mutant's glutamate is the top contributor to its pocket's pigment
+    mut = el[(el.variant == "A_I6E") & (el.pigment_id == "A_HC4101")]
+    assert (mut.top_residue == "A:GLU6").all()
+    res = pd.read_csv(study / "results/tables/residue_contributions.tsv", sep="\t")
+    assert {"shift_mev", "shift_cm1", "min_distance_A"} <= set(res.columns)
+    sites = pd.read_csv(study / "results/tables/site_energies.tsv", sep="\t")
+    assert set(sites["mode"]) == {"continuum", "embedded"}
+    br = pd.read_csv(study / "results/tables/branch_residues.tsv", sep="\t")
+    # chain A's Ile6 is matched with chain B's Asn6 by the alignment
+    assert ((br.residue_a == "A:ILE6") & (br.residue_b == "B:ASN6")).any()
+    scan = pd.read_csv(study / "results/tables/mutation_scan.tsv", sep="\t")
+    row = scan[(scan.pigment_id == "A_HC4101") & (scan.mutation == "A:I6E")].iloc[0]
+    assert row.status == "ok" and row.residue_after_mev != row.residue_before_mev
+    var = scan[(scan.kind == "variant") & (scan.mutation == "A_I6E")]
+    assert var.computed_embedded_mev.notna().all()
+    prot = pd.read_csv(study / "results/tables/protonation.tsv", sep="\t")
+    assert set(prot.variant) == {"wt", "A_I6E"} and (prot.kind == "pigment").any()
+    assert (study / "results/plots/residue_contributions.png").stat().st_size > 1000
 
 
 def test_eps_sweep_outputs(study):

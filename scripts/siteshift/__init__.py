@@ -1,2 +1,2 @@
 """siteshift: site energies of protein-embedded pigments from structures (SRSH-PCM)."""
-__version__ = "0.1.0"
+__version__ = "0.2.0"

@@ -4,7 +4,9 @@
     siteshift extract STRUCTURE PIGMENT_ID --outdir DIR
     siteshift environment STRUCTURE [--pigment ID] [--json FILE]
     siteshift excite XYZ --charge Q --spin S (--gas | --eps-static E --eps-optical N) ...
+    siteshift excite ... --point-charges FILE [--charge-scale S]   (embedded in charges)
     siteshift tune XYZ --charge Q --spin S ...
+    siteshift electrostatics STRUCTURE [--pigment ID] [--preset demo|full] --json FILE
 """
 from __future__ import annotations
 
@@ -134,12 +136,51 @@ def cmd_excite(args):
         s.omega = tuned["omega_bohr_inv"]
     elif args.omega is None:
         raise SystemExit("error: give --omega W (bohr^-1) or --tune")
-    res = excite(el, xyz, args.charge, args.spin, s, log=log)
+    charges = None
+    if args.point_charges:
+        from .qm.embedding import read_point_charges
+        charges = read_point_charges(args.point_charges, scale=args.charge_scale)
+    res = excite(el, xyz, args.charge, args.spin, s, log=log, charges=charges)
     if tuned:
         res["tuning"] = tuned
     for st in res["states"]:
         print(f"S{st['index']:<2d} {st['energy_ev']:8.4f} eV {st['wavelength_nm']:8.1f} nm "
               f"f={st['oscillator_strength']:.4f} {st['band'] or ''}")
+    if res.get("embedding"):
+        e = res["embedding"]
+        print(f"embedded in {e['n_charges']} charges (total {e['total_charge_e']:+.3f} e, scale "
+              f"{e['scale']:g}); QM-charge interaction {e['interaction_energy_ev']:+.4f} eV")
+    if args.json:
+        write_json(args.json, res)
+    return 0
+
+
+def cmd_electrostatics(args):
+    from .base.io import write_json
+    from .study.electrostatics import survey_structure
+    from .study.stages import setup_logging
+    if args.verbose:
+        setup_logging()
+    qm = {"preset": args.preset, "omega": args.omega}
+    el = {"ph": args.ph, "screening": args.screening, "smearing_A": args.smearing,
+          "unknown_residues": args.unknown}
+    res = survey_structure(args.structure, _library(args), qm, pigment=args.pigment,
+                           eps_static=args.eps_static, eps_optical=args.eps_optical, el=el,
+                           cache_dir=args.cache, altloc=args.altloc, top=args.top)
+    print(f"{res['structure']}: {res['n_atoms_charged']} charges (total "
+          f"{res['total_charge_e']:+.2f} e); uniform continuum eps {res['eps_static']:g}/"
+          f"{res['eps_optical']:g}; charges x {res['charge_scale']:.3f} ({res['screening']})")
+    print(f"{'pigment_id':<14s} {'band':<7s} {'shift_meV':>10s} {'cm-1':>8s}  top residues (meV)")
+    for p in res["pigments"]:
+        for band, b in p["bands"].items():
+            if band == "S1" and len(p["bands"]) > 1:
+                continue
+            top = ", ".join(f"{r['residue']} {r['shift_mev']:+.1f}" for r in b["residues"][:3])
+            mev = b["shift_first_order_mev"]
+            print(f"{p['pigment_id']:<14s} {band:<7s} {mev:>10.2f} {mev * 8.065544:>8.1f}  {top}")
+    t = res["timings_s"]
+    print(f"time: {t['total_s']:.1f} s (" + ", ".join(f"{k} {v}" for k, v in t.items()
+                                                       if k != "total_s") + ")")
     if args.json:
         write_json(args.json, res)
     return 0
@@ -208,6 +249,11 @@ def _qm_args(p, excite=True):
         g = p.add_mutually_exclusive_group()
         g.add_argument("--omega", type=float, help="range separation ω in bohr⁻¹")
         g.add_argument("--tune", action="store_true", help="tune ω first (gas phase)")
+        p.add_argument("--point-charges", metavar="FILE",
+                       help="embed the QM in charges: whitespace columns x y z q (Å, e), an "
+                            "optional fifth column a Gaussian width (Å); '#' comments")
+        p.add_argument("--charge-scale", type=float, default=1.0, metavar="S",
+                       help="multiply every charge by S (e.g. 1/ε to screen them; default 1)")
 
 
 def _common(p):
@@ -222,7 +268,7 @@ def _common(p):
 
 def build_parser() -> argparse.ArgumentParser:
     """The command's parser (every default from the study config's schema and presets)."""
-    from .base.defaults import default
+    from .base.defaults import FALLBACK_OMEGA, QM_PRESETS, default
     ap = argparse.ArgumentParser(prog="siteshift", description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     _common(ap)
@@ -279,15 +325,46 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--anion", action="store_true", default=tune["include_anion"],
                    help="J² with the anion term")
     p.set_defaults(func=cmd_tune)
+    p = add("electrostatics", "first-order electrostatic shift of every pigment, by residue")
+    el = default("electrostatics")
+    p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")
+    p.add_argument("--pigment", help="only this pigment id (default: all)")
+    p.add_argument("--preset", choices=sorted(QM_PRESETS), default=default("qm.preset"),
+                   help="QM preset of the difference densities and ESP fits (default "
+                        f"{default('qm.preset')})")
+    p.add_argument("--omega", type=float, help="ω in bohr⁻¹ (default: the untuned "
+                   f"{FALLBACK_OMEGA})")
+    p.add_argument("--eps-static", type=float, help="uniform continuum of the difference "
+                   f"densities (default {default('dielectric.eps_uniform')})")
+    p.add_argument("--eps-optical", type=float, help="its optical ε (default "
+                   f"{default('dielectric.eps_optical')})")
+    p.add_argument("--screening", choices=["none", "optical", "static"],
+                   default=el["screening"], help="ε dividing the charges' field (default "
+                   f"{el['screening']})")
+    p.add_argument("--ph", type=float, default=el["ph"],
+                   help=f"pH of the protonation states (default {el['ph']})")
+    p.add_argument("--smearing", type=float, default=el["smearing_A"],
+                   help=f"Gaussian width of the charges in Å (default {el['smearing_A']})")
+    p.add_argument("--unknown", choices=["error", "neutral"], default=el["unknown_residues"],
+                   help="a residue without a charge source: stop, or leave it uncharged")
+    p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
+    p.add_argument("--top", type=int, default=el["top_residues"],
+                   help=f"residues listed per pigment (default {el['top_residues']})")
+    p.add_argument("--cache", default="siteshift_cache",
+                   help="folder keeping difference densities and ESP charges between calls "
+                        "(default ./siteshift_cache)")
+    p.add_argument("--json", help="write the shifts and residue contributions as JSON")
+    p.set_defaults(func=cmd_electrostatics)
     return ap
 
 
 def main(argv=None):
     args = build_parser().parse_args(argv)
-    if args.cmd in ("excite", "tune"):
+    if args.cmd in ("excite", "tune", "electrostatics"):
         import os
         from .qm.settings import configure_threads
         configure_threads(args.threads or os.cpu_count() or 1)
+    from .environment.charges import ChargeError
     from .environment.dielectric import DielectricError
     from .qm.settings import EngineError
     from .structures.library import LibraryError
@@ -295,7 +372,8 @@ def main(argv=None):
     from .structures.reading import StructureError
     try:
         return args.func(args)
-    except (StructureError, ModelError, EngineError, LibraryError, DielectricError) as exc:
+    except (StructureError, ModelError, EngineError, LibraryError, DielectricError,
+            ChargeError) as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
 

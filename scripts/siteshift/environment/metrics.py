@@ -14,6 +14,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..base.defaults import default
+from ..base.elements import VDW_RADII, radius
 
 #: Kyte–Doolittle hydropathy index (J. Mol. Biol. 157, 105 (1982), Table 2)
 KYTE_DOOLITTLE = {
@@ -33,12 +34,6 @@ HYDROPATHY_SCALES = {"kyte_doolittle": KYTE_DOOLITTLE, "eisenberg": EISENBERG}
 _ALIASES = {"HID": "HIS", "HIE": "HIS", "HIP": "HIS", "HSD": "HIS", "HSE": "HIS", "HSP": "HIS",
             "MSE": "MET", "CYX": "CYS", "ASH": "ASP", "GLH": "GLU", "LYN": "LYS"}
 
-#: van der Waals radii, Å (Bondi, J. Phys. Chem. 68, 441 (1964); Fe, Zn, Ca: common practice
-#: values of 1.8, 1.39, 1.7 as used by biotite/ProtOr-style tables; unknown elements 1.8)
-VDW_RADII = {"H": 1.20, "C": 1.70, "N": 1.55, "O": 1.52, "S": 1.80, "P": 1.80, "F": 1.47,
-             "CL": 1.75, "BR": 1.85, "I": 1.98, "MG": 1.73, "NA": 2.27, "K": 2.75, "FE": 1.80,
-             "ZN": 1.39, "CA": 1.70, "CU": 1.40, "MN": 1.80, "NI": 1.63, "SE": 1.90}
-
 #: charged groups: residue -> atoms that carry the charge, and the sign
 CHARGED_GROUPS = {"ASP": (("OD1", "OD2"), -1), "GLU": (("OE1", "OE2"), -1),
                   "LYS": (("NZ",), +1), "ARG": (("NE", "NH1", "NH2"), +1),
@@ -46,10 +41,6 @@ CHARGED_GROUPS = {"ASP": (("OD1", "OD2"), -1), "GLU": (("OE1", "OE2"), -1),
 METAL_IONS = {"NA": 1, "K": 1, "MG": 2, "CA": 2, "ZN": 2, "FE": 3, "FE2": 2, "MN": 2, "CU": 2,
               "NI": 2, "CD": 2, "CO": 2}
 WATERS = {"HOH", "WAT", "DOD", "H2O", "TIP3", "SOL"}
-
-
-def radius(element: str) -> float:
-    return VDW_RADII.get(str(element).upper(), 1.8)
 
 
 def sphere_points(n: int) -> np.ndarray:

@@ -6,8 +6,11 @@ J. Mol. Spectrosc. 6, 138 (1961)). With PDB/CCD atom names of (bacterio)chloroph
 the NB–ND axis and Qx to NA–NC (common practice in structure-based exciton models). The axes are data
 in the pigment library, so a user can change them without touching code.
 
-Other pigments: the lowest state with oscillator strength at or above a threshold is the "bright"
-state; the site-energy tables report it.
+Other pigments: the "bright" state is the lowest state whose oscillator strength reaches both an
+absolute threshold (0.01) and a tenth of the strongest computed state's, so that a dark state
+borrowing a little intensity (an n→π* state mixed by a nearby charge: f 0.013 beside the
+π→π* state's 0.93 in the demo's embedded calculation) does not take the name; the site-energy
+tables report it.
 """
 from __future__ import annotations
 
@@ -24,11 +27,16 @@ def axis_cosines(dipole, coords, axis):
     return float(abs(d @ v) / (nd * nv))
 
 
+#: a "bright" state has at least this fraction of the strongest computed oscillator strength
+BRIGHT_RELATIVE = 0.1
+
+
 def assign_bands(states, coords, band_axes=None, bright_threshold=0.01):
     """Set state["band"] in place. band_axes: {"Qy": (i, j), "Qx": (k, l)} 0-based atom indices.
 
     Qy is the lowest state with f ≥ threshold whose dipole is closer to the Qy axis than to the Qx
-    axis; Qx likewise for the Qx axis. Without axes, the lowest state with f ≥ threshold is "bright".
+    axis; Qx likewise for the Qx axis. Without axes, the lowest state with f ≥ threshold and
+    f ≥ BRIGHT_RELATIVE × the largest f is "bright".
     """
     for s in states:
         s["band"] = None
@@ -49,8 +57,9 @@ def assign_bands(states, coords, band_axes=None, bright_threshold=0.01):
                     taken.add(id(s))
                     break
         return states
+    f_max = max((s["oscillator_strength"] for s in ordered), default=0.0)
     for s in ordered:
-        if s["oscillator_strength"] >= bright_threshold:
+        if s["oscillator_strength"] >= max(bright_threshold, BRIGHT_RELATIVE * f_max):
             s["band"] = "bright"
             break
     return states

@@ -16,21 +16,30 @@ from dataclasses import asdict
 import numpy as np
 import pyscf
 
+from .. import __version__
 from ..base.units import AU2DEBYE, HARTREE2EV, NM_EV
 from .bands import assign_bands
+from .embedding import interaction_energy
 from .fasttda import fast_response
+from .relaxed import relaxed_difference_density
 from .scf import build_molecule, frontier_ev, make_scf, run_scf
 from .settings import EngineError, ExciteSettings
 from .stock import stock_response
 
+
 def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
            log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False,
-           x0=None, keep_amplitudes=False):
+           x0=None, keep_amplitudes=False, charges=None, keep_response=False,
+           relaxed=False):
     """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
 
     band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
     name tetrapyrrole bands; without them the lowest state with f ≥ bright_threshold is flagged
-    "bright".
+    "bright". charges: embedding charges (:class:`siteshift.qm.embedding.PointCharges`) in the
+    core Hamiltonian. keep_response: return the orbitals and the TDA amplitudes (closed-shell
+    fast path) as ``_response`` for difference and transition densities; with relaxed, also the
+    relaxed difference density (:mod:`siteshift.qm.relaxed`) of every state with a band name and
+    of the lowest state (the site tables' S1).
     """
     settings = settings or ExciteSettings()
     settings.check()
@@ -42,7 +51,7 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
     t0 = time.perf_counter()
     mol = build_molecule(elements, coords_ang, charge, spin, settings.basis,
                          settings.max_memory_mb)
-    mf = make_scf(mol, settings, functional)
+    mf = make_scf(mol, settings, functional, charges=charges)
     mf, step, cycles = run_scf(mf, dm0=dm0, log=log)
     timings["scf"] = time.perf_counter() - t0
     log(f"SCF converged with step '{step}' in {timings['scf']:.1f} s")
@@ -54,7 +63,7 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
     if solver == "fast":
         e, osc, tdip, pairs, eps_used = fast_response(mf, settings, log=log, stats=stats, x0=x0)
     else:
-        e, osc, tdip, pairs, eps_used = stock_response(mf, settings)
+        e, osc, tdip, pairs, eps_used = stock_response(mf, settings, stats=stats)
     timings["response"] = time.perf_counter() - t1
     log(f"response ({solver}) in {timings['response']:.1f} s; continuum ε used = {eps_used}")
     if settings.solvated:
@@ -108,11 +117,34 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
                      "warm_start": bool(stats.get("warm_start", False))},
         "states": states,
         "timings_s": {k: round(v, 3) for k, v in timings.items()},
+        "embedding": _embedding_record(mf, charges),
         "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__,
-                     "numpy": np.__version__},
+                     "numpy": np.__version__, "siteshift": __version__},
     }
     if keep_density:
         result["_dm"] = mf.make_rdm1()
     if keep_amplitudes and "xs" in stats:
         result["_xs"] = stats["xs"]
+    if keep_response and "xs" in stats:
+        resp = {"mo_coeff": np.asarray(mf.mo_coeff), "mo_occ": np.asarray(mf.mo_occ),
+                "xs": np.asarray(stats["xs"])}
+        if relaxed:
+            t2 = time.perf_counter()
+            lowest = min(states, key=lambda s: s["energy_ev"])["index"]
+            for st in states:
+                if st["band"] or st["index"] == lowest:
+                    resp[f"relaxed_{st['index']}"] = relaxed_difference_density(
+                        mf, resp["xs"][st["index"] - 1], settings)
+            result["timings_s"]["relaxed_density"] = round(time.perf_counter() - t2, 3)
+            log(f"relaxed difference densities in {time.perf_counter() - t2:.1f} s")
+        result["_response"] = resp
     return result
+
+
+def _embedding_record(mf, charges) -> dict | None:
+    """What the embedding charges were and their interaction with the QM density (eV)."""
+    if charges is None or len(charges) == 0:
+        return None
+    rec = charges.summary()
+    rec["interaction_energy_ev"] = interaction_energy(mf) * HARTREE2EV
+    return rec

@@ -11,6 +11,7 @@ from pyscf import dft, gto, lib
 
 from ..base.units import HARTREE2EV
 from .dfjk import CompactDF
+from .embedding import attach_charges
 from .functional import SRSH
 from .pcm import FactoredPCM, FittedPCM
 from .settings import EngineError, ExciteSettings
@@ -44,8 +45,10 @@ def _attach_pcm(mf, settings: ExciteSettings, eps: float):
     return mf
 
 
-def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solvated=None):
-    """An (unrun) RKS/UKS object with the SRSH functional, DF and PCM as the settings say."""
+def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solvated=None,
+             charges=None):
+    """An (unrun) RKS/UKS object with the SRSH functional, DF and PCM as the settings say, and
+    the embedding charges (:class:`siteshift.qm.embedding.PointCharges`) when given."""
     functional = functional or settings.functional
     mf = dft.RKS(mol) if mol.spin == 0 else dft.UKS(mol)
     if mol.spin == 0:
@@ -72,7 +75,7 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
             mf.with_solvent.fit_df = mf.with_df
         elif settings.df_storage != "pyscf":  # "pyscf" keeps PySCF's objects as they are
             mf.with_solvent.__class__ = FactoredPCM
-    return mf
+    return attach_charges(mf, charges)
 
 
 #: The SCF fallback ladder: each step is tried from the previous step's density.

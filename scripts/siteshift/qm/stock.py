@@ -12,8 +12,10 @@ from .analysis import dominant_pairs, dominant_pairs_uks
 from .pcm import response_solvent
 from .settings import EngineError, ExciteSettings
 
-def stock_response(mf, settings: ExciteSettings):
-    """PySCF's own TDA/TDDFT on a converged ground state, with the ε_optical fix applied."""
+def stock_response(mf, settings: ExciteSettings, stats=None):
+    """PySCF's own TDA/TDDFT on a converged ground state, with the ε_optical fix applied.
+    stats (a dict, optional) receives closed-shell TDA amplitudes normalised to Σ x² = 1 ('xs'),
+    as the fast path gives them."""
     td = mf.TDA() if settings.tda else mf.TDDFT()
     td.nstates = settings.nstates
     td.conv_tol = 1e-7  # energy change (Hartree); PySCF checks residuals at sqrt(conv_tol)
@@ -28,12 +30,15 @@ def stock_response(mf, settings: ExciteSettings):
     energies = np.asarray(td.e)
     osc = np.asarray(td.oscillator_strength(gauge="length"))
     tdip = np.asarray(td.transition_dipole())
-    pairs = []
+    pairs, xs = [], []
     for x, _y in td.xy:
         if isinstance(x, (tuple, list)):  # UKS: (x_alpha, x_beta)
             pairs.append(dominant_pairs_uks(mf, x))
         else:
             x = np.asarray(x)
             pairs.append(dominant_pairs(mf, x / np.linalg.norm(x)))
+            xs.append(x / np.linalg.norm(x))
+    if stats is not None and xs and settings.tda:
+        stats["xs"] = np.asarray(xs)
     return energies, osc, tdip, pairs, eps_used
 

@@ -25,21 +25,35 @@ def _chain_ca(atoms, chain):
     ca = atoms.select_atoms(f"name CA and chainID {chain}")
     keep = [i for i, r in enumerate(ca.resnames) if r in THREE_TO_ONE]
     ca = ca[keep]
-    return "".join(THREE_TO_ONE[r] for r in ca.resnames), ca.positions.astype(float)
+    return "".join(THREE_TO_ONE[r] for r in ca.resnames), ca.positions.astype(float), ca
 
 
-def superpose_chains(atoms, c1, c2):
-    """(R, t, rmsd_A, n_matched) mapping chain c1 onto chain c2 (row vectors: x R + t)."""
+def _alignment(atoms, c1, c2):
+    """(matched index pairs, Cα coordinates of c1, of c2, Cα atoms of c1, of c2)."""
     from biotite.sequence import ProteinSequence
     from biotite.sequence.align import SubstitutionMatrix, align_optimal
-    s1, x1 = _chain_ca(atoms, c1)
-    s2, x2 = _chain_ca(atoms, c2)
+    s1, x1, a1 = _chain_ca(atoms, c1)
+    s2, x2, a2 = _chain_ca(atoms, c2)
     if len(s1) < 3 or len(s2) < 3:
         raise ValueError(f"chains {c1} and {c2}: fewer than 3 protein Cα atoms to superpose")
     matrix = SubstitutionMatrix.std_protein_matrix()
     ali = align_optimal(ProteinSequence(s1), ProteinSequence(s2), matrix, gap_penalty=(-10, -1),
                         terminal_penalty=False, max_number=1)[0]
     idx = ali.trace[(ali.trace[:, 0] >= 0) & (ali.trace[:, 1] >= 0)]
+    return idx, x1, x2, a1, a2
+
+
+def aligned_residues(atoms, c1, c2) -> dict:
+    """{(resname, resid) of chain c1: (resname, resid) of chain c2} for residues matched by the
+    same sequence alignment that superposes the chains."""
+    idx, _x1, _x2, a1, a2 = _alignment(atoms, c1, c2)
+    return {(str(a1[i].resname), int(a1[i].resid)): (str(a2[j].resname), int(a2[j].resid))
+            for i, j in idx}
+
+
+def superpose_chains(atoms, c1, c2):
+    """(R, t, rmsd_A, n_matched) mapping chain c1 onto chain c2 (row vectors: x R + t)."""
+    idx, x1, x2, _a1, _a2 = _alignment(atoms, c1, c2)
     P, Q = x1[idx[:, 0]], x2[idx[:, 1]]
     R, t = kabsch(P, Q)
     rmsd = float(np.sqrt(((P @ R + t - Q) ** 2).sum(1).mean()))

@@ -25,6 +25,9 @@ def _save(fig, out_png, out_svg=None):
 def plot_site_energies(sites_tsv, out_png, out_svg=None):
     df = pd.read_csv(sites_tsv, sep="\t")
     df = df[df.band != "S1"] if (df.band != "S1").any() else df
+    if "mode" in df and df["mode"].nunique() > 1:  # continuum-only and embedded side by side
+        df = df.assign(variant=[v if m == "continuum" else f"{v} ({m})"
+                                for v, m in zip(df.variant, df["mode"])])
     variants = sorted(df.variant.unique())
     pigments = sorted(df.pigment_id.unique())
     fig, ax = plt.subplots(figsize=(max(4, 1.2 * len(pigments) + 2), 3.6))
@@ -94,11 +97,41 @@ def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
     if len(df) and "delta_ev" in df:
         df = df[df.status == "ok"]
         df = df[df.band != "S1"] if (df.band != "S1").any() else df
-        labels = [f"{v}\n{p} {b}" for v, p, b in zip(df.variant, df.pigment_id, df.band)]
+        modes = df["mode"] if "mode" in df else ["continuum"] * len(df)
+        labels = [f"{v}\n{p} {b}" + ("" if m == "continuum" else f"\n{m}")
+                  for v, p, b, m in zip(df.variant, df.pigment_id, df.band, modes)]
         ax.bar(range(len(df)), df.delta_ev * 1000, color=["tab:red" if d < 0 else "tab:blue"
                                                           for d in df.delta_ev])
         ax.set_xticks(range(len(df)), labels, fontsize=7)
         ax.axhline(0, color="k", lw=0.8)
     ax.set_ylabel("shift vs reference (meV)")
     ax.set_title("variant shifts (red: red-shifted)", fontsize=9)
+    _save(fig, out_png, out_svg)
+
+
+def plot_residue_contributions(residues: pd.DataFrame, out_png, out_svg=None, top=10,
+                               reference=None):
+    """The residues that shift each site most (first order, meV; one panel per variant ×
+    pigment, the named band — Qy or bright — rather than S1), reference variant first."""
+    df = residues[residues.band != "S1"] if (residues.band != "S1").any() else residues
+    keys = sorted({(v, p, b) for v, p, b in zip(df.variant, df.pigment_id, df.band)},
+                  key=lambda k: (k[0] != reference, k))
+    n = max(1, len(keys))
+    fig, axes = plt.subplots(1, n, figsize=(3.6 * n, 0.32 * top + 1.6), squeeze=False)
+    for ax, (v, p, b) in zip(axes[0], keys):
+        g = df[(df.variant == v) & (df.pigment_id == p) & (df.band == b)].head(top)[::-1]
+        y = np.arange(len(g))
+        ax.barh(y, g.shift_mev, color=["tab:red" if s < 0 else "tab:blue" for s in g.shift_mev])
+        ax.set_yticks(y, g.residue, fontsize=7)
+        for yi, s in zip(y, g.shift_mev):
+            ax.annotate(f"{s:+.1f}", (s, yi), fontsize=6, va="center",
+                        ha="left" if s >= 0 else "right",
+                        xytext=(2 if s >= 0 else -2, 0), textcoords="offset points")
+        ax.axvline(0, color="k", lw=0.8)
+        ax.set_xlabel("shift (meV)  [1 meV = 8.07 cm⁻¹]")
+        ax.set_title(f"{v}: {p} {b}", fontsize=8)
+    if not keys:
+        axes[0][0].text(0.5, 0.5, "no embedded sites", ha="center", transform=axes[0][0].transAxes)
+    fig.suptitle("Residue contributions to each site's shift (first order; red: red shift)",
+                 fontsize=9)
     _save(fig, out_png, out_svg)

@@ -15,6 +15,7 @@ from ..base import io
 from ..base.defaults import default
 from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
+from ..qm.bands import assign_bands
 from ..qm.excite import excite
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
@@ -213,51 +214,126 @@ class _hash_lock:
         return False
 
 
-def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
-                 cache_dir=None, variant=None):
-    """Excited states of one pigment; results are cached by a hash of every QM input."""
+def site_settings(rec: dict, dielectric: dict, qm: dict, tuning_json=None) -> ExciteSettings:
+    """The continuum-only QM settings of one site: the config's `qm` section, the site's ε and
+    the tuned ω (or the configured one)."""
     from .config import qm_settings
-    rec = io.read_json(model_json)
-    env = io.read_json(environment_json)
-    diel = env["dielectric"]
     omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
-    settings = qm_settings(qm, diel["eps_static"], diel["eps_optical"], omega,
+    settings = qm_settings(qm, dielectric["eps_static"], dielectric["eps_optical"], omega,
                            rec.get("nstates_default"))
     if qm.get("gas_phase"):
         settings.eps_static = settings.eps_optical = 1.0
+    return settings
+
+
+#: settings that change how a job runs but not its numbers: left out of the QM cache key
+RUN_ONLY_SETTINGS = ("max_memory_mb",)
+
+
+def qm_key(rec: dict, settings: ExciteSettings, charges=None) -> dict:
+    """Everything that changes a QM result: atoms, coordinates, charge, spin, band axes, the
+    settings (less RUN_ONLY_SETTINGS), the embedding charges, and the code and PySCF versions."""
+    import pyscf
+
+    from .. import __version__
+    s = {k: v for k, v in asdict(settings).items() if k not in RUN_ONLY_SETTINGS}
     key = {"elements": rec["elements"], "coords_A": rec["coords_A"], "charge": rec["charge"],
-           "multiplicity": rec["multiplicity"], "band_axes": rec["band_axes"],
-           "settings": asdict(settings)}
-    h = io.stable_hash(key)
+           "multiplicity": rec["multiplicity"], "band_axes": rec["band_axes"], "settings": s,
+           "versions": {"siteshift": __version__, "pyscf": pyscf.__version__}}
+    if charges is not None and len(charges):
+        key["charges"] = charges.key()
+    return key
+
+
+def _save_arrays(path, **arrays):
+    """np.savez written atomically (a killed job leaves no half file)."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".npz")
+    os.close(fd)
+    try:
+        np.savez(tmp, **arrays)
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def response_path(cached_json):
+    """Where the orbitals, amplitudes and relaxed densities of a cached result are kept."""
+    return Path(cached_json).with_suffix(".response.npz")
+
+
+def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=None,
+                  relaxed=False, label=None):
+    """(result, hash, response arrays or None) of one QM job, computed or reused from the cache.
+
+    relaxed: the response arrays must hold the relaxed difference densities of the named bands
+    (a cached result without them is recomputed, starting from its ground-state density)."""
+    label = label or rec["pigment_id"]
+    h = io.stable_hash(qm_key(rec, settings, charges))
     cached = Path(cache_dir) / f"{h}.json" if cache_dir else None
     with _hash_lock(cached):
+        dm0 = None
         if cached is not None and cached.exists():
-            result = io.read_json(cached)
-            log.info("%s: QM inputs unchanged (hash %s); reusing %s", rec["pigment_id"], h,
-                     cached)
-            result["cache"] = "reused"
-        else:
-            log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
-                     "alpha=%.2f, %d states (hash %s)", rec["pigment_id"], settings.basis,
-                     settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
-                     settings.alpha, settings.nstates, h)
-            result = excite(rec["elements"], rec["coords_A"], rec["charge"],
-                            rec["multiplicity"] - 1, settings, log=log.info,
-                            band_axes=rec["band_axes"] or None, keep_density=True)
-            result["cache"] = "computed"
-            dm = result.pop("_dm")
-            if cached is not None:
-                io.write_json(cached, result)
-                np.save(density_path(cached), np.asarray(dm))
+            arrays = _load_response(cached)
+            if not relaxed or (arrays is not None and
+                               any(k.startswith("relaxed_") for k in arrays)):
+                result = io.read_json(cached)
+                log.info("%s: QM inputs unchanged (hash %s); reusing %s", label, h, cached)
+                result["cache"] = "reused"
+                # band names follow today's rules, not those of the run that computed them
+                assign_bands(result["states"], np.asarray(rec["coords_A"]),
+                             rec["band_axes"] or None)
+                return result, h, arrays
+            log.info("%s: cached result %s lacks relaxed densities; recomputing", label, h)
+            if density_path(cached).exists():
+                dm0 = np.load(density_path(cached))
+        log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
+                 "alpha=%.2f, %d states%s (hash %s)", label, settings.basis,
+                 settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
+                 settings.alpha, settings.nstates,
+                 "" if charges is None else f", {len(charges)} embedding charges", h)
+        result = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
+                        settings, log=log.info, band_axes=rec["band_axes"] or None,
+                        keep_density=True, dm0=dm0, charges=charges, keep_response=True,
+                        relaxed=relaxed)
+        result["cache"] = "computed"
+        dm = result.pop("_dm")
+        arrays = result.pop("_response", None)
+        if cached is not None:
+            cached.parent.mkdir(parents=True, exist_ok=True)
+            np.save(density_path(cached), np.asarray(dm))
+            if arrays is not None:
+                _save_arrays(response_path(cached), **arrays)
+            io.write_json(cached, result)   # last: the entry counts once its JSON exists
+    return result, h, arrays
+
+
+def _load_response(cached):
+    path = response_path(cached)
+    if not path.exists():
+        return None
+    with np.load(path) as z:
+        return {k: z[k] for k in z.files}
+
+
+def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
+                 cache_dir=None, variant=None, relaxed=False):
+    """Excited states of one pigment (continuum only); results are cached by a hash of every
+    QM input (:func:`qm_key`). relaxed: keep the relaxed difference densities of the named
+    bands too (the electrostatics stage decomposes shifts with them)."""
+    rec = io.read_json(model_json)
+    diel = io.read_json(environment_json)["dielectric"]
+    settings = site_settings(rec, diel, qm, tuning_json)
+    result, h, _arrays = cached_excite(rec, settings, cache_dir, relaxed=relaxed)
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
-                  qm_hash=h, dielectric_source=diel["source"],
+                  qm_hash=h, dielectric_source=diel["source"], mode="continuum",
                   tuning=str(tuning_json) if tuning_json else "fixed")
     io.write_json(out_json, result)
     for s in result["states"]:
         log.info("  S%d %.4f eV %.1f nm f=%.4f %s", s["index"], s["energy_ev"],
                  s["wavelength_nm"], s["oscillator_strength"], s["band"] or "")
     return result
-
 
 
 def density_path(cached_json):

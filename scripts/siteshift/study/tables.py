@@ -17,7 +17,7 @@ from ..structures.reading import read_structure
 
 log = logging.getLogger("siteshift")
 
-SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
+SITE_COLUMNS = ["variant", "mode", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
                 "wavelength_nm", "oscillator_strength", "transition_dipole_debye",
                 "eps_static", "eps_optical", "eps_screen", "alpha", "omega_bohr_inv", "basis",
                 "response", "solvation", "qm_hash"]
@@ -38,7 +38,8 @@ def site_rows(result: dict) -> list:
     f = result["functional"]
     for band, s in picked:
         rows.append({
-            "variant": result.get("variant"), "pigment_id": result["pigment_id"],
+            "variant": result.get("variant"), "mode": result.get("mode", "continuum"),
+            "pigment_id": result["pigment_id"],
             "ccd_code": result["ccd_code"], "chain": result["pigment_id"].split("_")[0],
             "band": band, "state_index": s["index"], "energy_ev": s["energy_ev"],
             "wavelength_nm": s["wavelength_nm"], "oscillator_strength": s["oscillator_strength"],
@@ -56,7 +57,7 @@ def site_energies(result_files) -> pd.DataFrame:
     for p in result_files:
         rows += site_rows(read_json(p))
     return pd.DataFrame(rows, columns=SITE_COLUMNS).sort_values(
-        ["variant", "pigment_id", "band"]).reset_index(drop=True)
+        ["variant", "mode", "pigment_id", "band"]).reset_index(drop=True)
 
 
 def auto_pairs(pigment_ids, chains=None):
@@ -77,18 +78,19 @@ def auto_pairs(pigment_ids, chains=None):
 def branch_shifts(sites: pd.DataFrame, pairs) -> pd.DataFrame:
     """ΔE = E(a) − E(b) per variant, pair and band; pairs: [(name, a, b)]."""
     rows = []
-    for variant, sv in sites.groupby("variant", sort=True):
+    for (variant, mode), sv in sites.groupby(["variant", "mode"], sort=True):
         for name, a, b in pairs:
             ea, eb = sv[sv.pigment_id == a], sv[sv.pigment_id == b]
             if ea.empty or eb.empty:
-                rows.append({"variant": variant, "pair": name, "pigment_a": a, "pigment_b": b,
-                             "band": None, "status": "missing " + ("a" if ea.empty else "b")})
+                rows.append({"variant": variant, "mode": mode, "pair": name, "pigment_a": a,
+                             "pigment_b": b, "band": None,
+                             "status": "missing " + ("a" if ea.empty else "b")})
                 continue
             for band in sorted(set(ea.band) & set(eb.band)):
                 ra, rb = ea[ea.band == band].iloc[0], eb[eb.band == band].iloc[0]
                 d = ra.energy_ev - rb.energy_ev
-                rows.append({"variant": variant, "pair": name, "pigment_a": a, "pigment_b": b,
-                             "band": band, "energy_a_ev": ra.energy_ev,
+                rows.append({"variant": variant, "mode": mode, "pair": name, "pigment_a": a,
+                             "pigment_b": b, "band": band, "energy_a_ev": ra.energy_ev,
                              "energy_b_ev": rb.energy_ev, "delta_ev": d,
                              "delta_cm1": d * EV2CM1,
                              "delta_nm": ra.wavelength_nm - rb.wavelength_nm,
@@ -99,34 +101,35 @@ def branch_shifts(sites: pd.DataFrame, pairs) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=BRANCH_COLUMNS)
 
 
-BRANCH_COLUMNS = ["variant", "pair", "pigment_a", "pigment_b", "band", "energy_a_ev",
+BRANCH_COLUMNS = ["variant", "mode", "pair", "pigment_a", "pigment_b", "band", "energy_a_ev",
                   "energy_b_ev", "delta_ev", "delta_cm1", "delta_nm", "redder", "eps_static_a",
                   "eps_static_b", "omega_bohr_inv", "basis", "status"]
-VARIANT_COLUMNS = ["variant", "reference", "pigment_id", "band", "energy_variant_ev",
+VARIANT_COLUMNS = ["variant", "mode", "reference", "pigment_id", "band", "energy_variant_ev",
                    "energy_reference_ev", "delta_ev", "delta_cm1", "delta_nm",
                    "eps_static_variant", "eps_static_reference", "same_qm_inputs", "status"]
 
 
 def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
-    """E(variant) − E(reference) per pigment and band; unmatched pigments reported."""
-    ref = sites[sites.variant == reference]
+    """E(variant) − E(reference) per pigment, band and mode (continuum, embedded); unmatched
+    pigments reported."""
     rows = []
-    for variant, sv in sites.groupby("variant", sort=True):
+    for (variant, mode), sv in sites.groupby(["variant", "mode"], sort=True):
         if variant == reference:
             continue
+        ref = sites[(sites.variant == reference) & (sites["mode"] == mode)]
         ids = sorted(set(sv.pigment_id) | set(ref.pigment_id))
         for pid in ids:
             a, r = sv[sv.pigment_id == pid], ref[ref.pigment_id == pid]
             if a.empty or r.empty:
-                rows.append({"variant": variant, "reference": reference, "pigment_id": pid,
-                             "band": None,
+                rows.append({"variant": variant, "mode": mode, "reference": reference,
+                             "pigment_id": pid, "band": None,
                              "status": "only in reference" if a.empty else "only in variant"})
                 continue
             for band in sorted(set(a.band) & set(r.band)):
                 va, vr = a[a.band == band].iloc[0], r[r.band == band].iloc[0]
                 d = va.energy_ev - vr.energy_ev
-                rows.append({"variant": variant, "reference": reference, "pigment_id": pid,
-                             "band": band, "energy_variant_ev": va.energy_ev,
+                rows.append({"variant": variant, "mode": mode, "reference": reference,
+                             "pigment_id": pid, "band": band, "energy_variant_ev": va.energy_ev,
                              "energy_reference_ev": vr.energy_ev, "delta_ev": d,
                              "delta_cm1": d * EV2CM1,
                              "delta_nm": va.wavelength_nm - vr.wavelength_nm,
