@@ -255,3 +255,17 @@ def test_fast_equals_stock_on_chromophore_full_accuracy():
     e2, f2, *_ = stock_response(mf, ExciteSettings(**{**s.__dict__, "nstates": 6}))
     assert np.max(np.abs(e1 - e2[:4])) * HARTREE2EV <= 1e-3
     assert np.max(np.abs(f1 - f2[:4])) <= 1e-3
+
+
+def test_fitting_basis_covers_iron_with_a_pople_basis():
+    # PySCF's automatic JK-fitting choice for Pople bases (cc-pVDZ-JKFIT) has no Fe: hemes
+    # with the demo preset take Weigend's universal JK fit (JCC 29, 167 (2008)) instead;
+    # molecules it covers keep PySCF's choice
+    from siteshift.qm.scf import UNIVERSAL_JKFIT, covers
+    s = ExciteSettings(basis="6-31g", grid_level=0)
+    fe = build_molecule(["Fe", "Cl", "Cl"], [[0, 0, 0], [0, 0, 2.2], [0, 0, -2.2]], spin=4,
+                        basis="6-31g")
+    mf = make_scf(fe, s)
+    assert mf.with_df.auxbasis == UNIVERSAL_JKFIT and covers(fe, mf.with_df.auxbasis)
+    assert not covers(fe, "cc-pvdz-jkfit")
+    assert make_scf(build_molecule(*WATER, basis="6-31g"), s).with_df.auxbasis != UNIVERSAL_JKFIT

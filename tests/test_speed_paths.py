@@ -250,6 +250,19 @@ def test_pcm_factorised_once_equals_pyscf_step(method, fit):
         assert abs(e1 - e0) < 1e-12 and np.max(np.abs(v1 - v0)) < 1e-11
 
 
+@pytest.mark.parametrize("fit", [True, False])
+def test_pcm_response_with_kept_factors_equals_pyscf(fit):
+    # Reference: PySCF's PCM._B_dot_x (the reaction field's response to a density change, two
+    # dense solves per call) on the same object, for a stack of symmetric densities
+    mf, _s = _ch2o("def2-svp", df_storage="float64", pcm_fit=fit)
+    sol = mf.with_solvent
+    rng = np.random.default_rng(5)
+    x = rng.standard_normal((2,) + mf.make_rdm1().shape) * 0.01
+    d = x + x.transpose(0, 2, 1)
+    ref = pcm.PCM._B_dot_x(sol, d)
+    assert np.max(np.abs(sol._B_dot_x(d) - ref)) < 1e-11 * max(1.0, np.abs(ref).max())
+
+
 def test_fitted_pcm_response_matches_its_own_dense_matrix():
     # With the fitted PCM the fast operator is still a symmetric matrix whose lowest eigenvalues
     # the Davidson solver finds (dense diagonalisation as reference).

@@ -21,7 +21,7 @@ from ..base.units import AU2DEBYE, HARTREE2EV, NM_EV
 from .bands import assign_bands
 from .embedding import interaction_energy
 from .fasttda import fast_response
-from .relaxed import relaxed_difference_density
+from .relaxed import relaxed_difference_densities
 from .scf import build_molecule, frontier_ev, make_scf, run_scf
 from .settings import EngineError, ExciteSettings
 from .stock import stock_response
@@ -131,10 +131,9 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         if relaxed:
             t2 = time.perf_counter()
             lowest = min(states, key=lambda s: s["energy_ev"])["index"]
-            for st in states:
-                if st["band"] or st["index"] == lowest:
-                    resp[f"relaxed_{st['index']}"] = relaxed_difference_density(
-                        mf, resp["xs"][st["index"] - 1], settings)
+            pick = [st["index"] for st in states if st["band"] or st["index"] == lowest]
+            dens = relaxed_difference_densities(mf, [resp["xs"][i - 1] for i in pick], settings)
+            resp.update({f"relaxed_{i}": P for i, P in zip(pick, dens)})
             result["timings_s"]["relaxed_density"] = round(time.perf_counter() - t2, 3)
             log(f"relaxed difference densities in {time.perf_counter() - t2:.1f} s")
         result["_response"] = resp

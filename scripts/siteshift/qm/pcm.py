@@ -29,6 +29,30 @@ def response_solvent(mf, settings: ExciteSettings):
 class FactoredPCM(pcm.PCM):
     """PySCF's PCM with its surface matrix K factorised once for all SCF cycles."""
 
+    def _lu(self):
+        """The LU factors of K, refreshed whenever PySCF replaces K."""
+        K = self._intermediates["K"]
+        lu = getattr(self, "_k_lu", None)
+        if lu is None or lu[0] is not K:
+            with all_blas_threads():
+                lu = self._k_lu = (K, scipy.linalg.lu_factor(K))
+        return lu[1]
+
+    def _B_dot_x(self, dms):
+        """PySCF's reaction-field response to a density change (used by the coupled-perturbed
+        equations of relaxed densities), with K's factors reused instead of two solves."""
+        if not self._intermediates:
+            self.build()
+        shape = dms.shape
+        nao = shape[-1]
+        dms = dms.reshape(-1, nao, nao)
+        R = self._intermediates["R"]
+        lu = self._lu()
+        v_grids = -self._get_v(dms)
+        q = scipy.linalg.lu_solve(lu, R @ v_grids.T).T
+        qt = (R.T @ scipy.linalg.lu_solve(lu, v_grids.T, trans=1)).T
+        return self._get_vmat((q + qt) / 2.0).reshape(shape)
+
     def _get_vind(self, dms):
         """PySCF's PCM energy and potential, with K factorised once (LU) for every SCF cycle:
         PySCF solves K q = R v and Kᵀ y = v from scratch in each cycle (two O(n³) solves on a
@@ -39,14 +63,11 @@ class FactoredPCM(pcm.PCM):
         dms = dms.reshape(-1, nao, nao)
         if dms.shape[0] == 2:
             dms = (dms[0] + dms[1]).reshape(-1, nao, nao)
-        K, R = self._intermediates["K"], self._intermediates["R"]
-        lu = getattr(self, "_k_lu", None)
-        if lu is None or lu[0] is not K:
-            with all_blas_threads():
-                lu = self._k_lu = (K, scipy.linalg.lu_factor(K))
+        R = self._intermediates["R"]
+        lu = self._lu()
         v_grids = self.v_grids_n - self._get_v(dms)
-        q = scipy.linalg.lu_solve(lu[1], R @ v_grids.T).T
-        qt = (R.T @ scipy.linalg.lu_solve(lu[1], v_grids.T, trans=1)).T
+        q = scipy.linalg.lu_solve(lu, R @ v_grids.T).T
+        qt = (R.T @ scipy.linalg.lu_solve(lu, v_grids.T, trans=1)).T
         q_sym = (q + qt) / 2.0
         vmat = self._get_vmat(q_sym)
         epcm = 0.5 * np.dot(q_sym[0], v_grids[0])

@@ -64,6 +64,8 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
     mf.max_memory = settings.max_memory_mb
     if settings.density_fitting:
         mf = mf.density_fit(auxbasis=settings.auxbasis)
+        if settings.auxbasis is None and not covers(mol, mf.with_df.auxbasis):
+            mf.with_df.auxbasis = UNIVERSAL_JKFIT
         if settings.df_storage != "pyscf":
             mf.with_df = CompactDF(mol, auxbasis=mf.with_df.auxbasis, storage=settings.df_storage,
                                    block_mb=min(1000, max(100, settings.max_memory_mb // 8)),
@@ -76,6 +78,28 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
         elif settings.df_storage != "pyscf":  # "pyscf" keeps PySCF's objects as they are
             mf.with_solvent.__class__ = FactoredPCM
     return attach_charges(mf, charges)
+
+
+#: JK-fitting basis used when PySCF's automatic choice lacks an element of the molecule (e.g.
+#: Fe with a Pople basis): Weigend's universal JK fit, defined for H–Rn (Weigend, JCC 29, 167
+#: (2008))
+UNIVERSAL_JKFIT = "def2-universal-jkfit"
+
+
+def covers(mol, auxbasis) -> bool:
+    """Whether a fitting basis (a name or per-element dict) is defined for every element of
+    mol. PySCF's automatic choice for Pople bases (cc-pVDZ-JKFIT) has no Fe, for instance."""
+    import contextlib
+    import io
+
+    from pyscf import df
+    from pyscf.lib.exceptions import BasisNotFoundError
+    try:
+        with contextlib.redirect_stdout(io.StringIO()):   # PySCF prints advice on failure
+            df.addons.make_auxmol(mol, auxbasis)
+        return True
+    except (BasisNotFoundError, KeyError, RuntimeError):
+        return False
 
 
 #: The SCF fallback ladder: each step is tried from the previous step's density.
