@@ -157,6 +157,7 @@ def cmd_excite(args):
 
 def cmd_electrostatics(args):
     from .base.io import write_json
+    from .base.units import EV2CM1
     from .study.electrostatics import survey_structure
     from .study.stages import setup_logging
     if args.verbose:
@@ -177,7 +178,8 @@ def cmd_electrostatics(args):
                 continue
             top = ", ".join(f"{r['residue']} {r['shift_mev']:+.1f}" for r in b["residues"][:3])
             mev = b["shift_first_order_mev"]
-            print(f"{p['pigment_id']:<14s} {band:<7s} {mev:>10.2f} {mev * 8.065544:>8.1f}  {top}")
+            print(f"{p['pigment_id']:<14s} {band:<7s} {mev:>10.2f} {mev * EV2CM1 / 1000:>8.1f}"
+                  f"  {top}")
     t = res["timings_s"]
     print(f"time: {t['total_s']:.1f} s (" + ", ".join(f"{k} {v}" for k, v in t.items()
                                                        if k != "total_s") + ")")

@@ -79,13 +79,13 @@ def scan_stage(structure, charges_tsv, embedded_json, model_json, environment_js
 
     from ..structures.mutate import MutationError, mutate
     from ..structures.reading import read_structure
-    from .stages import _load_response
+    from .stages import load_response
     el = fill(el, "electrostatics")
     rec = io.read_json(model_json)
     diel = io.read_json(environment_json)["dielectric"]
     emb = io.read_json(embedded_json)
     h_ref = emb["electrostatics"]["reference_qm_hash"]
-    arrays = _load_response(Path(cache_dir) / f"{h_ref}.json")
+    arrays = load_response(Path(cache_dir) / f"{h_ref}.json")
     if arrays is None:
         raise FileNotFoundError(f"{rec['pigment_id']}: the reference calculation {h_ref} has no "
                                 f"response arrays in {cache_dir}; rerun the embedded stage")

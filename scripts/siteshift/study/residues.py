@@ -106,13 +106,17 @@ def branch_residue_table(residues: pd.DataFrame, pairs, atoms=None) -> pd.DataFr
             for res_b, sb in rb.items():
                 if res_b not in seen_b:
                     rows.append(_branch_row(variant, name, band, a, b, None, res_b, np.nan, sb))
-    df = pd.DataFrame(rows, columns=BRANCH_RESIDUE_COLUMNS)
+    return _by_magnitude(pd.DataFrame(rows, columns=BRANCH_RESIDUE_COLUMNS),
+                         ["variant", "pair", "band"], "delta_mev")
+
+
+def _by_magnitude(df, keys, column, ascending=None):
+    """Rows sorted by the keys (ascending unless told), then by |column|, largest first."""
     if df.empty:
         return df
-    df["_abs"] = df.delta_mev.abs()
-    return df.sort_values(["variant", "pair", "band", "_abs"],
-                          ascending=[True, True, True, False]).drop(columns="_abs") \
-        .reset_index(drop=True)
+    order = list(ascending or [True] * len(keys)) + [False]
+    return df.assign(_abs=df[column].abs()).sort_values(keys + ["_abs"], ascending=order) \
+        .drop(columns="_abs").reset_index(drop=True)
 
 
 def _position(key):
@@ -162,13 +166,8 @@ def scan_table(scan_files, embedded_files, reference) -> pd.DataFrame:
                     row["computed_continuum_mev"] = (var[1] - ref[1]) * 1000.0
             rows.append(row)
     cols = SCAN_COLUMNS + ["computed_embedded_mev", "computed_continuum_mev"]
-    df = pd.DataFrame(rows, columns=cols)
-    if df.empty:
-        return df
-    df["_abs"] = df.predicted_shift_mev.abs()
-    return df.sort_values(["pigment_id", "band", "kind", "_abs"],
-                          ascending=[True, True, False, False]).drop(columns="_abs") \
-        .reset_index(drop=True)
+    return _by_magnitude(pd.DataFrame(rows, columns=cols), ["pigment_id", "band", "kind"],
+                         "predicted_shift_mev", ascending=[True, True, False])
 
 
 def electrostatics_stage_tables(embedded_files, scan_files, report_files, pairs_tsv, out,

@@ -275,7 +275,7 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
     with _hash_lock(cached):
         dm0 = None
         if cached is not None and cached.exists():
-            arrays = _load_response(cached)
+            arrays = load_response(cached)
             if not relaxed or (arrays is not None and
                                any(k.startswith("relaxed_") for k in arrays)):
                 result = io.read_json(cached)
@@ -309,7 +309,8 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
     return result, h, arrays
 
 
-def _load_response(cached):
+def load_response(cached):
+    """The response arrays of a cached result (dict of arrays), or None."""
     path = response_path(cached)
     if not path.exists():
         return None
