@@ -19,6 +19,7 @@ include: "rules/excite.smk"
 include: "rules/aggregate.smk"
 include: "rules/sweep.smk"
 include: "rules/electrostatics.smk"
+include: "rules/couplings.smk"
 
 
 rule all:

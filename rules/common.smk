@@ -18,6 +18,7 @@ REFERENCE = config["reference"]
 QM = config["qm"]
 SWEEP = config["sweep"]
 ELECTRO = config["electrostatics"]
+COUPLINGS = config["couplings"]
 
 
 wildcard_constraints:
@@ -204,6 +205,8 @@ def optional_targets():
     out = []
     if ELECTRO["enabled"]:
         out += [f"{RESULTS}/tables/electrostatics.tsv", f"{RESULTS}/plots/residue_contributions.png"]
+    if COUPLINGS["enabled"]:
+        out += [f"{RESULTS}/tables/couplings.tsv", f"{RESULTS}/plots/exciton_spectra.png"]
     if SWEEP["enabled"]:
         out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
     return out

@@ -3,6 +3,7 @@ import shutil
 import subprocess
 import sys
 
+import numpy as np
 import pandas as pd
 import pytest
 import yaml
@@ -128,6 +129,29 @@ def test_electrostatics_outputs(study):
     prot = pd.read_csv(study / "results/tables/protonation.tsv", sep="\t")
     assert set(prot.variant) == {"wt", "A_I6E"} and (prot.kind == "pigment").any()
     assert (study / "results/plots/residue_contributions.png").stat().st_size > 1000
+
+
+def test_coupling_outputs(study):
+    # the two pocket pigments couple (23 Å apart): three routes, exciton states, spectra
+    c = pd.read_csv(study / "results/tables/couplings.tsv", sep="\t")
+    assert set(c.variant) == {"wt", "A_I6E"} and len(c) == 2
+    assert (c.distance_A.between(20.0, 27.0)).all()
+    assert (c.screening_factor == 0.5).all()       # optical screening, n² = 2 at both sites
+    # far apart, the transition-density and point-dipole routes agree in sign and size
+    assert (np.sign(c.j_tdc_cm1) == np.sign(c.j_dipole_cm1)).all()
+    assert (abs(c.j_tdc_cm1 - c.j_dipole_cm1) <= 0.15 * c.j_dipole_cm1.abs() + 0.5).all()
+    st = pd.read_csv(study / "results/tables/exciton_states.tsv", sep="\t")
+    assert set(st.group) == {"all"} and len(st) == 4
+    for _v, g in st.groupby("variant"):
+        assert g.participation_ratio.between(1.0, 2.0).all()
+        rot = g.rotational_strength_DmuB
+        assert abs(rot.sum()) < 1e-6 + 1e-6 * rot.abs().sum()
+    sp = pd.read_csv(study / "results/tables/exciton_spectra.tsv", sep="\t")
+    assert {"wavelength_nm", "wavenumber_cm1", "absorption_D2_per_ev", "cd_DmuB_per_ev"} <= set(
+        sp.columns)
+    for name in ("couplings", "exciton_states", "exciton_spectra"):
+        assert (study / f"results/plots/{name}.png").stat().st_size > 1000
+    assert (study / "results/wt/pigments/A_HC4101/transitions.npz").exists()
 
 
 def test_eps_sweep_outputs(study):

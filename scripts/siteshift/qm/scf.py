@@ -105,9 +105,43 @@ def covers(mol, auxbasis) -> bool:
 #: The SCF fallback ladder: each step is tried from the previous step's density.
 SCF_LADDER = (
     ("diis", {}),
-    ("level_shift+damping", {"level_shift": 0.3, "damp": 0.5, "diis_start_cycle": 4}),
+    ("level_shift+damping", {"level_shift": 0.5, "damp": 0.3}),
     ("second_order", None),
 )
+
+
+#: A DIIS or damped step whose orbital gradient stops falling is left for the next step of the
+#: ladder from its current density, rather than running to max_cycle: after at least
+#: ``STALL_MIN_CYCLES`` cycles, if the best |g| of the last ``STALL_WINDOW`` cycles is not below
+#: ``STALL_RATIO`` times the best before them (and still above ``STALL_ABOVE``, so float32
+#: noise near convergence never counts). Measured on heme b (19HC, 6-31G, gas): DIIS sat at
+#: |g| ~ 3 for 100 cycles (17 s each) before the damped step was reached.
+STALL_MIN_CYCLES = 20
+STALL_WINDOW = 10
+STALL_RATIO = 0.5
+STALL_ABOVE = 1e-3
+
+
+class _Stalled(Exception):
+    """Raised from an SCF callback to leave a step that stopped converging."""
+
+    def __init__(self, dm, gorb):
+        super().__init__(f"orbital gradient stalled at {gorb:.2e}")
+        self.dm, self.gorb = dm, gorb
+
+
+def _stall_watch(history):
+    """An SCF callback appending each cycle's |g| to history and raising :class:`_Stalled`
+    when the step stopped converging (see ``STALL_MIN_CYCLES``)."""
+    def callback(env):
+        g = float(env.get("norm_gorb", np.inf))
+        history.append(g)
+        n = len(history)
+        if n >= STALL_MIN_CYCLES and g > STALL_ABOVE:
+            before, recent = min(history[:-STALL_WINDOW]), min(history[-STALL_WINDOW:])
+            if recent > STALL_RATIO * before:
+                raise _Stalled(env["dm"], recent)
+    return callback
 
 
 #: Orbital-gradient norm below which the SCF's exchange goes back to float64 (see
@@ -217,21 +251,29 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
                 setattr(solver, k, v)
         solver.max_cycle = max_cycle
         cycles = []
-        solver.callback = lambda env: cycles.append(env.get("cycle"))
+        last = attrs is None or name == SCF_LADDER[-1][0]
+        solver.callback = ((lambda env: cycles.append(env.get("norm_gorb"))) if last
+                           else _stall_watch(cycles))
         early = _EarlyCycles(solver) if mixed_precision and attrs is not None else None
+        stalled = None
         try:
             solver.kernel(dm0=dm)
+        except _Stalled as exc:
+            stalled = exc
+            solver.converged = False
         finally:
             if early is not None:
                 early.restore()
         tried.append(name)
         if log:
             mixed = early.describe() if early is not None else ""
-            log(f"SCF step '{name}': converged={solver.converged} E={solver.e_tot:.10f} Eh "
-                f"after {len(cycles)} cycles{mixed}")
+            why = f", left early: {stalled}" if stalled else ""
+            energy = f" E={solver.e_tot:.10f} Eh" if not stalled else ""
+            log(f"SCF step '{name}': converged={solver.converged}{energy} "
+                f"after {len(cycles)} cycles{mixed}{why}")
         if solver.converged:
             return solver, name, len(cycles)
-        dm = solver.make_rdm1()
+        dm = stalled.dm if stalled else solver.make_rdm1()
     raise EngineError(f"SCF did not converge after the fallback ladder {tried}; try a smaller "
                       "basis, a different charge/multiplicity, or check the geometry for clashes")
 

@@ -45,6 +45,11 @@ def check_config(config: dict, root=".") -> dict:
         if trip[1] == trip[2]:
             raise ConfigError(f"config key 'branches.pairs': pair {trip[0]!r} names "
                               f"{trip[1]} twice")
+    cp = config.get("couplings") or {}
+    if (cp.get("enabled") and cp.get("site_energies") == "embedded"
+            and not (config.get("electrostatics") or {}).get("enabled")):
+        raise ConfigError("config key 'couplings.site_energies': embedded needs "
+                          "electrostatics.enabled: true (or use auto/continuum)")
     return config
 
 

@@ -135,3 +135,90 @@ def plot_residue_contributions(residues: pd.DataFrame, out_png, out_svg=None, to
     fig.suptitle("Residue contributions to each site's shift (first order; red: red shift)",
                  fontsize=9)
     _save(fig, out_png, out_svg)
+
+
+def plot_couplings(exciton_files, out_png, out_svg=None):
+    """Coupling matrix (cm⁻¹, the route that builds the Hamiltonian) of each variant, with the
+    three routes' values written in each cell."""
+    res = [read_json(f) for f in exciton_files]
+    n = max(1, len(res))
+    fig, axes = plt.subplots(1, n, figsize=(3.8 * n, 3.6), squeeze=False)
+    for ax, r in zip(axes[0], res):
+        ids = [s["pigment_id"] for s in r["sites"]]
+        J = np.zeros((len(ids), len(ids)))
+        text = {}
+        for c in r["couplings"]:
+            i, j = ids.index(c["pigment_a"]), ids.index(c["pigment_b"])
+            J[i, j] = J[j, i] = c[f"j_{r['route']}_cm1"]
+            text[(i, j)] = text[(j, i)] = (f"tdc {c['j_tdc_cm1']:.1f}\nq {c['j_charges_cm1']:.1f}"
+                                           f"\ndip {c['j_dipole_cm1']:.1f}")
+        lim = max(1e-9, np.abs(J).max())
+        im = ax.imshow(J, cmap="RdBu_r", vmin=-lim, vmax=lim)
+        for (i, j), t in text.items():
+            ax.text(j, i, t, ha="center", va="center", fontsize=6)
+        ax.set_xticks(range(len(ids)), ids, rotation=30, ha="right", fontsize=7)
+        ax.set_yticks(range(len(ids)), ids, fontsize=7)
+        ax.set_title(f"{r['variant']}: J ({r['route']}, screening {r['screening']['model']})",
+                     fontsize=8)
+        fig.colorbar(im, ax=ax, label="J (cm⁻¹)", shrink=0.8)
+    _save(fig, out_png, out_svg)
+
+
+def plot_exciton_states(exciton_files, out_png, out_svg=None, group="all"):
+    """Each exciton state's composition (site weights c²) against its energy, per variant."""
+    res = [read_json(f) for f in exciton_files]
+    n = max(1, len(res))
+    fig, axes = plt.subplots(1, n, figsize=(3.8 * n, 3.4), squeeze=False)
+    for ax, r in zip(axes[0], res):
+        g = r["groups"].get(group)
+        if not g:
+            continue
+        c = np.asarray(g["states"]["coefficients"]) ** 2
+        bottom = np.zeros(c.shape[1])
+        x = np.arange(c.shape[1])
+        for i, site in enumerate(g["sites"]):
+            ax.bar(x, c[i], bottom=bottom, label=site)
+            bottom += c[i]
+        ax.set_xticks(x, [f"{e:.3f} eV\nD {d:.1f}" for e, d in
+                          zip(g["states"]["energies_ev"], g["states"]["dipole_strength_D2"])],
+                      fontsize=6)
+        ax.set_ylabel("site weight c²")
+        ax.set_title(f"{r['variant']} ({group}): exciton states", fontsize=8)
+        ax.legend(fontsize=6, frameon=False)
+    _save(fig, out_png, out_svg)
+
+
+def plot_exciton_spectra(exciton_files, out_png, out_svg=None, group="all"):
+    """Absorption and CD of each variant's exciton states (nm), with the exciton and monomer
+    sticks."""
+    res = [read_json(f) for f in exciton_files]
+    fig, (a1, a2) = plt.subplots(2, 1, figsize=(6, 5.2), sharex=True)
+    for r in res:
+        g = r["groups"].get(group)
+        if not g:
+            continue
+        sp, st = g["spectra"], g["states"]
+        nm = np.asarray(sp["wavelength_nm"])
+        line, = a1.plot(nm, sp["absorption_D2_per_ev"], label=f"{r['variant']} exciton")
+        a1.plot(nm, sp["monomer_absorption_D2_per_ev"], ls=":", color=line.get_color(),
+                label=f"{r['variant']} uncoupled")
+        a2.plot(nm, sp["cd_DmuB_per_ev"], color=line.get_color(), label=r["variant"])
+        e = np.asarray(st["energies_ev"])
+        scale = max(np.max(sp["absorption_D2_per_ev"]), 1e-12) / max(
+            max(st["dipole_strength_D2"]), 1e-12)
+        a1.vlines(NM_EV / e, 0, np.asarray(st["dipole_strength_D2"]) * scale * 0.5,
+                  color=line.get_color(), lw=1.5)
+        ms = np.asarray(g["site_energies_ev"])
+        a1.plot(NM_EV / ms, np.zeros_like(ms), "v", color=line.get_color(), ms=5)
+        rs = np.asarray(st["rotational_strength_DmuB"])
+        cd_scale = max(np.max(np.abs(sp["cd_DmuB_per_ev"])), 1e-12) / max(np.abs(rs).max(),
+                                                                           1e-12)
+        a2.vlines(NM_EV / e, 0, rs * cd_scale * 0.5, color=line.get_color(), lw=1.5)
+    a1.set_ylabel("dipole strength density (D²/eV)")
+    a2.set_ylabel("rotational strength density\n(D·μB/eV)")
+    a2.axhline(0, color="k", lw=0.6)
+    a2.set_xlabel("wavelength (nm)")
+    a1.legend(fontsize=7, frameon=False)
+    a1.set_title(f"Exciton absorption and CD ({group}); sticks: exciton states (half height), "
+                 "▼ site energies", fontsize=8)
+    _save(fig, out_png, out_svg)

@@ -1,0 +1,234 @@
+"""The coupling stage: each site's transition densities kept compactly, the couplings of every
+pair of sites by three routes, exciton states per variant and group, absorption and CD.
+
+Per site (:func:`transitions_stage`): the transition densities of the site's calculation (the
+continuum-only one, or the embedded one when electrostatics is enabled; ``couplings.
+site_energies``), fitted in an auxiliary basis and as transition charges, kept in the QM cache
+beside the result they come from (``{qm_hash}.transitions.npz``), so a reused result keeps them.
+Per variant (:func:`excitons_stage`): couplings of every pair within ``max_distance_A``, the
+exciton Hamiltonian of the whole variant (group ``all``) and of each configured group, states
+and spectra. Per study (:func:`coupling_tables`): the tables.
+"""
+from __future__ import annotations
+
+import logging
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..base import io
+from ..base.defaults import fill
+from ..base.units import EV2CM1, NM_EV
+from ..interactions.couplings import couple
+from ..interactions.excitons import exciton_states, spectra
+from ..interactions.transitions import SiteTransitions, site_transitions
+from ..qm.scf import build_molecule
+from .stages import load_response
+
+log = logging.getLogger("siteshift")
+
+COUPLING_COLUMNS = ["variant", "pigment_a", "pigment_b", "band_a", "band_b", "state_a",
+                    "state_b", "energy_a_ev", "energy_b_ev", "distance_A", "kappa",
+                    "mu_a_debye", "mu_b_debye", "j_tdc_cm1", "j_charges_cm1", "j_dipole_cm1",
+                    "j_tdc_vacuum_cm1", "j_charges_vacuum_cm1", "j_dipole_vacuum_cm1",
+                    "screening_model", "screening_factor", "dipole_scale_a", "dipole_scale_b",
+                    "route_used"]
+STATE_COLUMNS = ["variant", "group", "state", "energy_ev", "energy_cm1", "wavelength_nm",
+                 "dipole_strength_D2", "oscillator_strength", "rotational_strength_DmuB",
+                 "participation_ratio", "top_site", "top_weight", "weights"]
+
+
+def pick_state(states, band="auto") -> dict:
+    """The state of a site that couples: a band name, a state number, or auto (Qy where named,
+    else bright, else the lowest)."""
+    by_band = {s.get("band"): s for s in states if s.get("band")}
+    if str(band).isdigit():
+        k = int(band)
+        hit = [s for s in states if s["index"] == k]
+        if not hit:
+            raise KeyError(f"couplings.band: state {k} not computed ({len(states)} states)")
+        return hit[0]
+    if band == "auto":
+        for name in ("Qy", "bright"):
+            if name in by_band:
+                return by_band[name]
+        return min(states, key=lambda s: s["energy_ev"])
+    if band not in by_band:
+        raise KeyError(f"couplings.band: no state named {band!r} among "
+                       f"{sorted(b for b in by_band if b)}; choose another band or a state number")
+    return by_band[band]
+
+
+def transitions_path(cache_dir, qm_hash) -> Path:
+    return Path(cache_dir) / f"{qm_hash}.transitions.npz"
+
+
+def cached_transitions(res: dict, qm_hash: str, rec: dict, cache_dir,
+                       auxbasis=None) -> SiteTransitions:
+    """Compact transition densities of one QM result (kept in the cache beside it, computed
+    once), with the band names and energies of `res`."""
+    auxbasis = auxbasis or fill({}, "couplings")["auxbasis"]
+    cached = transitions_path(cache_dir, qm_hash)
+    t0 = time.perf_counter()
+    st = SiteTransitions.load(cached) if cached.exists() else None
+    if st is not None and st.auxbasis != auxbasis:
+        st = None
+    if st is None:
+        arrays = load_response(Path(cache_dir) / f"{qm_hash}.json")
+        if arrays is None or "xs" not in arrays:
+            raise FileNotFoundError(f"{rec['pigment_id']}: the QM result {qm_hash} has no "
+                                    f"response amplitudes in {cache_dir} (an open-shell or "
+                                    "stock-solver site keeps none); rerun its excitation "
+                                    "with solver: fast")
+        mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
+                             rec["multiplicity"] - 1, res["basis"])
+        states = sorted(res["states"], key=lambda s: s["index"])
+        st = site_transitions(mol, arrays["mo_coeff"], arrays["mo_occ"], arrays["xs"],
+                              [s["energy_ev"] for s in states],
+                              [s.get("band") for s in states], rec["pigment_id"],
+                              rec["ccd_code"], auxbasis, qm_hash)
+        st.save(cached)
+        log.info("%s: transition densities fitted (%s, %d functions) and transition charges "
+                 "(RMS %s Eh/e) in %.1f s", rec["pigment_id"], auxbasis,
+                 st.aux_coeffs.shape[1], np.array2string(st.charge_rms, precision=1),
+                 time.perf_counter() - t0)
+    else:
+        log.info("%s: transition densities reused from %s", rec["pigment_id"], cached)
+    # the copy's identity and today's band names, whichever copy computed the entry
+    states = sorted(res["states"], key=lambda s: s["index"])
+    st.pigment_id, st.ccd_code = rec["pigment_id"], rec["ccd_code"]
+    st.bands = [s.get("band") or "" for s in states]
+    st.energies_ev = np.array([s["energy_ev"] for s in states])
+    return st
+
+
+def transitions_stage(site_json, model_json, out_npz, cache_dir, auxbasis=None):
+    """The transition densities of one site's calculation (see :func:`cached_transitions`)."""
+    res = io.read_json(site_json)
+    st = cached_transitions(res, res["qm_hash"], io.read_json(model_json), cache_dir, auxbasis)
+    st.save(out_npz)
+    return st
+
+
+def _dipole_scale(st: SiteTransitions, k, measured: dict) -> float:
+    d2 = measured.get(st.ccd_code)
+    if not d2:
+        return 1.0
+    return float(np.sqrt(d2) / np.linalg.norm(st.dipole_debye(k)))
+
+
+def excitons_stage(transition_files, site_jsons, environment_jsons, out_json, cfg=None,
+                   variant=None):
+    """Couplings, exciton states and spectra of one variant's sites."""
+    cp = fill(cfg, "couplings")
+    t0 = time.perf_counter()
+    sites = [SiteTransitions.load(f) for f in transition_files]
+    results = [io.read_json(f) for f in site_jsons]
+    eps_opt = [io.read_json(f)["dielectric"]["eps_optical"] for f in environment_jsons]
+    chosen = [pick_state(r["states"], cp["band"]) for r in results]
+    ks = [c["index"] - 1 for c in chosen]
+    scales = [_dipole_scale(s, k, cp["dipole_strength_D2"]) for s, k in zip(sites, ks)]
+    for s, k, f in zip(sites, ks, scales):
+        if f != 1.0:
+            log.info("%s: transition dipole %.2f D rescaled by %.3f to the configured dipole "
+                     "strength %.1f D²", s.pigment_id, np.linalg.norm(s.dipole_debye(k)), f,
+                     cp["dipole_strength_D2"][s.ccd_code])
+    scr = cp["screening"]
+    n = len(sites)
+    rows, J = [], np.zeros((n, n))
+    route_key = f"j_{cp['route']}_cm1"
+    for i in range(n):
+        for j in range(i + 1, n):
+            eps = scr["eps_optical"] or 0.5 * (eps_opt[i] + eps_opt[j])
+            row = couple(sites[i], sites[j], [ks[i]], [ks[j]], screening=scr["model"],
+                         eps_optical=eps, screening_params={k: scr[k] for k in
+                                                            ("A", "beta", "s0")},
+                         dipole_scale_a=scales[i], dipole_scale_b=scales[j])[0]
+            within = row["distance_A"] <= cp["max_distance_A"]
+            row.update(variant=variant, route_used=cp["route"] if within else "beyond cutoff")
+            if within:
+                J[i, j] = J[j, i] = row[route_key]
+            rows.append(row)
+            log.info("%s–%s (%.1f Å, κ %.2f): J tdc %.2f, charges %.2f, dipole %.2f cm⁻¹ "
+                     "(screening %s ×%.3f)", sites[i].pigment_id, sites[j].pigment_id,
+                     row["distance_A"], row["kappa"], row["j_tdc_cm1"], row["j_charges_cm1"],
+                     row["j_dipole_cm1"], scr["model"], row["screening_factor"])
+    E = np.array([c["energy_ev"] for c in chosen])
+    mu = np.array([s.dipole_debye(k) * f for s, k, f in zip(sites, ks, scales)])
+    centres = np.array([s.centre_A(k) for s, k in zip(sites, ks)])
+    ids = [s.pigment_id for s in sites]
+    groups = {"all": ids, **{g: m for g, m in cp["groups"].items()}}
+    sp = cp["spectra"]
+    out_groups = {}
+    for g, members in groups.items():
+        missing = [m for m in members if m not in ids]
+        if missing:
+            log.warning("group %s: %s not among the coupled sites of %s; left out", g, missing,
+                        variant)
+        idx = [ids.index(m) for m in members if m in ids]
+        if not idx:
+            continue
+        sub = np.ix_(idx, idx)
+        st = exciton_states(E[idx], J[sub], mu[idx], centres[idx])
+        spec = spectra(E[idx], J[sub], mu[idx], centres[idx], sp["homogeneous_fwhm_cm1"],
+                       sp["disorder_fwhm_cm1"], sp["samples"], sp["seed"])
+        out_groups[g] = {"sites": [ids[i] for i in idx],
+                         "site_energies_ev": E[idx].tolist(),
+                         "couplings_cm1": J[sub].tolist(),
+                         "states": {k: np.asarray(v).tolist() for k, v in st.items()},
+                         "spectra": {k: (np.asarray(v).tolist() if k != "samples" else v)
+                                     for k, v in spec.items()}}
+    out = {"variant": variant, "band": cp["band"], "route": cp["route"],
+           "screening": scr, "max_distance_A": cp["max_distance_A"],
+           "auxbasis": cp["auxbasis"], "sites": [
+               {"pigment_id": s.pigment_id, "ccd_code": s.ccd_code, "state": k + 1,
+                "band": c.get("band"), "energy_ev": c["energy_ev"],
+                "dipole_debye": (s.dipole_debye(k) * f).tolist(), "dipole_scale": f,
+                "centre_A": s.centre_A(k).tolist(), "eps_optical": e,
+                "transition_charge_rms_hartree": float(s.charge_rms[k]),
+                "mode": r.get("mode", "continuum"), "qm_hash": s.qm_hash}
+               for s, k, c, f, e, r in zip(sites, ks, chosen, scales, eps_opt, results)],
+           "couplings": rows, "groups": out_groups, "spectra_settings": sp,
+           "time_s": round(time.perf_counter() - t0, 3)}
+    io.write_json(out_json, out)
+    return out
+
+
+def coupling_tables(exciton_files, out_couplings, out_states, out_spectra):
+    """couplings.tsv, exciton_states.tsv and exciton_spectra.tsv of every variant."""
+    crow, srow, prow = [], [], []
+    for f in exciton_files:
+        r = io.read_json(f)
+        v = r["variant"]
+        crow += r["couplings"]
+        for g, grp in r["groups"].items():
+            st, sites = grp["states"], grp["sites"]
+            c = np.asarray(st["coefficients"])
+            for k, e in enumerate(st["energies_ev"]):
+                w = c[:, k] ** 2
+                order = np.argsort(w)[::-1]
+                srow.append({"variant": v, "group": g, "state": k + 1, "energy_ev": e,
+                             "energy_cm1": e * EV2CM1, "wavelength_nm": NM_EV / e,
+                             "dipole_strength_D2": st["dipole_strength_D2"][k],
+                             "oscillator_strength": st["oscillator_strength"][k],
+                             "rotational_strength_DmuB": st["rotational_strength_DmuB"][k],
+                             "participation_ratio": st["participation_ratio"][k],
+                             "top_site": sites[order[0]], "top_weight": float(w[order[0]]),
+                             "weights": "; ".join(f"{sites[i]} {w[i]:.3f}" for i in order)})
+            sp = grp["spectra"]
+            for i, e in enumerate(sp["energy_ev"]):
+                prow.append({"variant": v, "group": g, "energy_ev": e,
+                             "wavelength_nm": sp["wavelength_nm"][i],
+                             "wavenumber_cm1": sp["wavenumber_cm1"][i],
+                             "absorption_D2_per_ev": sp["absorption_D2_per_ev"][i],
+                             "cd_DmuB_per_ev": sp["cd_DmuB_per_ev"][i],
+                             "monomer_absorption_D2_per_ev":
+                                 sp["monomer_absorption_D2_per_ev"][i],
+                             "samples": sp["samples"]})
+    pd.DataFrame(crow, columns=COUPLING_COLUMNS).to_csv(out_couplings, sep="\t", index=False,
+                                                         float_format="%.6g")
+    pd.DataFrame(srow, columns=STATE_COLUMNS).to_csv(out_states, sep="\t", index=False,
+                                                      float_format="%.6g")
+    pd.DataFrame(prow).to_csv(out_spectra, sep="\t", index=False, float_format="%.6g")
