@@ -19,6 +19,8 @@ QM = config["qm"]
 SWEEP = config["sweep"]
 ELECTRO = config["electrostatics"]
 COUPLINGS = config["couplings"]
+# dimers computed whole: name -> (pigment_a, pigment_b)
+DIMERS = {name: (a, b) for name, a, b in COUPLINGS["dimers"]}
 
 
 wildcard_constraints:
@@ -97,9 +99,14 @@ def all_environments(wildcards):
 
 
 def _basis_estimate(model_json):
-    """Rough basis size of a QM model: ~14 functions per heavy atom, 5 per H (def2-SVP-like)."""
+    """Rough basis size of a QM model: ~14 functions per heavy atom, 5 per H (def2-SVP-like);
+    several models (a dimer) add up."""
     import json
 
+    if isinstance(model_json, (list, tuple)) or hasattr(model_json, "__iter__") and not \
+            isinstance(model_json, str):
+        sizes = [_basis_estimate(m) for m in model_json]
+        return sum(sizes) if sizes and None not in sizes else None
     try:
         els = json.loads(Path(model_json).read_text())["elements"]
     except (OSError, ValueError, KeyError):
@@ -107,19 +114,24 @@ def _basis_estimate(model_json):
     return 14 * sum(e != "H" for e in els) + 5 * sum(e == "H" for e in els)
 
 
+def _qm_models(input):
+    """The QM model file(s) of a job: `model`, or `models` for a dimer."""
+    return getattr(input, "model", None) or list(getattr(input, "models", []))
+
+
 def qm_mem_mb(wildcards, input, attempt):
     """Memory scaled by model size: two density-fitted 3-index tensors (full and long range) of
     ~3 nao auxiliary functions, nao²/2 pairs, 8 bytes, plus 1.5 GB; at least the PySCF budget
     × 1.5; doubled on a retry."""
     floor = QM["max_memory_mb"] * 1.5
-    nao = _basis_estimate(getattr(input, "model", ""))
+    nao = _basis_estimate(_qm_models(input))
     est = 1500 + 2 * 3 * nao ** 3 / 2 * 8 / 1e6 if nao else floor
     return int(max(floor, est) * attempt)
 
 
 def qm_runtime(wildcards, input, attempt):
     """Minutes scaled by model size (cubic in the basis), doubled on a retry."""
-    nao = _basis_estimate(getattr(input, "model", ""))
+    nao = _basis_estimate(_qm_models(input))
     return int((10 + 2 * (nao / 100) ** 3 if nao else 240) * attempt)
 
 
@@ -210,3 +222,51 @@ def optional_targets():
     if SWEEP["enabled"]:
         out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
     return out
+
+
+# couplings stage
+
+
+def _site_file(variant, pigment):
+    mode = COUPLINGS["site_energies"]
+    embedded = mode == "embedded" or (mode == "auto" and ELECTRO["enabled"])
+    name = "excited_embedded.json" if embedded else "excited_states.json"
+    return f"{RESULTS}/{variant}/pigments/{pigment}/{name}"
+
+
+def coupled_site_result(wildcards):
+    """The site calculation whose transitions couple: the embedded one when electrostatics is
+    on (couplings.site_energies: auto or embedded), else the continuum-only one."""
+    return _site_file(wildcards.variant, wildcards.pigment)
+
+
+def variant_site_files(kind):
+    """Input function: one file per site of the variant (site result, transitions or
+    environment)."""
+
+    def files(wildcards):
+        pids = pigments_of(wildcards.variant)
+        if kind == "site":
+            return [_site_file(wildcards.variant, p) for p in pids]
+        name = {"transitions": "transitions.npz", "environment": "environment.json"}[kind]
+        return [f"{RESULTS}/{wildcards.variant}/pigments/{p}/{name}" for p in pids]
+
+    return files
+
+
+def all_dimers(wildcards):
+    """Every configured dimer in every variant that has both pigments."""
+    out = []
+    for v in VARIANTS:
+        pids = set(pigments_of(v))
+        for name, (a, b) in DIMERS.items():
+            if a in pids and b in pids:
+                out.append(f"{RESULTS}/{v}/dimers/{name}.json")
+    return out
+
+
+def dimer_tuning(wildcards):
+    if QM["omega"]:
+        return []
+    a = DIMERS[wildcards.dimer][0]
+    return f"{RESULTS}/tuning/{code_of(wildcards.variant, a)}.json"

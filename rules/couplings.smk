@@ -2,33 +2,6 @@
 # couplings.enabled).
 
 
-def _site_file(variant, pigment):
-    mode = COUPLINGS["site_energies"]
-    embedded = mode == "embedded" or (mode == "auto" and ELECTRO["enabled"])
-    name = "excited_embedded.json" if embedded else "excited_states.json"
-    return f"{RESULTS}/{variant}/pigments/{pigment}/{name}"
-
-
-def coupled_site_result(wildcards):
-    """The site calculation whose transitions couple: the embedded one when electrostatics is
-    on (couplings.site_energies: auto or embedded), else the continuum-only one."""
-    return _site_file(wildcards.variant, wildcards.pigment)
-
-
-def variant_site_files(kind):
-    """Input function: one file per site of the variant (site result, transitions or
-    environment)."""
-
-    def files(wildcards):
-        pids = pigments_of(wildcards.variant)
-        if kind == "site":
-            return [_site_file(wildcards.variant, p) for p in pids]
-        name = {"transitions": "transitions.npz", "environment": "environment.json"}[kind]
-        return [f"{RESULTS}/{wildcards.variant}/pigments/{p}/{name}" for p in pids]
-
-    return files
-
-
 rule transition_densities:
     input:
         site=coupled_site_result,
@@ -70,9 +43,37 @@ rule couple_pigments:
         "../scripts/couple_pigments.py"
 
 
+rule excite_dimer:
+    input:
+        models=lambda w: [f"{RESULTS}/{w.variant}/pigments/{p}/qm_model.json"
+                          for p in DIMERS[w.dimer]],
+        environments=lambda w: [f"{RESULTS}/{w.variant}/pigments/{p}/environment.json"
+                                for p in DIMERS[w.dimer]],
+        tuning=dimer_tuning,
+    output:
+        json=f"{RESULTS}/{{variant}}/dimers/{{dimer}}.json",
+    log:
+        f"{LOGS}/excite_dimer/{{variant}}/{{dimer}}.log",
+    benchmark:
+        f"{BENCH}/excite_dimer/{{variant}}/{{dimer}}.tsv"
+    threads: QM["threads"]
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=qm_runtime,
+    params:
+        qm=QM,
+        couplings=COUPLINGS,
+        cache=f"{RESULTS}/qm_cache",
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/excite_dimer.py"
+
+
 rule tabulate_couplings:
     input:
         excitons=expand(f"{RESULTS}/{{variant}}/excitons.json", variant=VARIANTS),
+        dimers=all_dimers,
     output:
         couplings=report(
             f"{RESULTS}/tables/couplings.tsv",
@@ -97,6 +98,11 @@ rule tabulate_couplings:
         plot_states=report(
             f"{RESULTS}/plots/exciton_states.png",
             caption="../config/report/plot_exciton_states.rst",
+            category="Couplings and excitons",
+        ),
+        dimers=report(
+            f"{RESULTS}/tables/dimers.tsv",
+            caption="../config/report/dimers.rst",
             category="Couplings and excitons",
         ),
         plot_spectra=report(

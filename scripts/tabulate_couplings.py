@@ -9,7 +9,8 @@ from siteshift.study.stages import setup_logging
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 files = list(sm.input.excitons)
-coupling_tables(files, sm.output.couplings, sm.output.states, sm.output.spectra)
+coupling_tables(files, sm.output.couplings, sm.output.states, sm.output.spectra,
+                list(sm.input.dimers), sm.output.dimers)
 plot_couplings(files, sm.output.plot_matrix)
 plot_exciton_states(files, sm.output.plot_states)
 plot_exciton_spectra(files, sm.output.plot_spectra)

@@ -269,3 +269,21 @@ def test_fitting_basis_covers_iron_with_a_pople_basis():
     assert mf.with_df.auxbasis == UNIVERSAL_JKFIT and covers(fe, mf.with_df.auxbasis)
     assert not covers(fe, "cc-pvdz-jkfit")
     assert make_scf(build_molecule(*WATER, basis="6-31g"), s).with_df.auxbasis != UNIVERSAL_JKFIT
+
+
+def test_a_stalled_scf_step_is_left_early():
+    # heme b with DIIS sat at |g| ≈ 3 for 100 cycles; the ladder now leaves such a step after
+    # STALL_MIN_CYCLES and hands its density to the next step
+    from siteshift.qm.scf import STALL_MIN_CYCLES, _Stalled, _stall_watch
+    cb = _stall_watch([])
+    flat = [5.0, 4.0] + [3.2] * (STALL_MIN_CYCLES - 3)
+    for g in flat:
+        cb({"norm_gorb": g, "dm": None})
+    with pytest.raises(_Stalled) as err:
+        cb({"norm_gorb": 3.3, "dm": "last density"})
+    assert err.value.dm == "last density"
+    # steady (linear) convergence and float32 noise near convergence never count as a stall
+    for history in ([0.9 ** k for k in range(80)], [1e-4 * (1 + 0.1 * (k % 2)) for k in range(80)]):
+        cb = _stall_watch([])
+        for g in history:
+            cb({"norm_gorb": g, "dm": None})

@@ -18,6 +18,7 @@ def _tiny_config(root, **qm):
     cfg["qm"].update({"preset": "demo", "basis": "sto-3g", "grid_level": 0, "lebedev_order": 5,
                       "nstates": 2, "omega": 0.25, **qm})
     cfg["electrostatics"]["scan"].update({"mutations": ["A:I6E"], "radius_A": 0.0})
+    cfg["couplings"]["dimers"] = [["pocket-pair", "A_HC4101", "B_HC4101"]]
     return cfg
 
 
@@ -152,6 +153,15 @@ def test_coupling_outputs(study):
     for name in ("couplings", "exciton_states", "exciton_spectra"):
         assert (study / f"results/plots/{name}.png").stat().st_size > 1000
     assert (study / "results/wt/pigments/A_HC4101/transitions.npz").exists()
+    # the pair computed whole: its exciton pair is two local excitations shared by the two
+    # pigments, split no more than the unscreened coupling model says (the shared continuum
+    # screens it)
+    d = pd.read_csv(study / "results/tables/dimers.tsv", sep="\t")
+    assert set(d.variant) == {"wt", "A_I6E"} and (d.dimer == "pocket-pair").all()
+    assert (d.pair_weight_min > 0.8).all()
+    assert (d[["charge_transfer_lower", "charge_transfer_upper"]] < 0.05).all().all()
+    assert (d.splitting_cm1 > 0).all()
+    assert (d.splitting_cm1 <= 1.2 * d.model_splitting_cm1 + 5.0).all()
 
 
 def test_eps_sweep_outputs(study):

@@ -167,7 +167,8 @@ def cmd_electrostatics(args):
           "unknown_residues": args.unknown}
     res = survey_structure(args.structure, _library(args), qm, pigment=args.pigment,
                            eps_static=args.eps_static, eps_optical=args.eps_optical, el=el,
-                           cache_dir=args.cache, altloc=args.altloc, top=args.top)
+                           cache_dir=args.cache, altloc=args.altloc, top=args.top,
+                           axial_ligands=args.axial_ligands)
     print(f"{res['structure']}: {res['n_atoms_charged']} charges (total "
           f"{res['total_charge_e']:+.2f} e); uniform continuum eps {res['eps_static']:g}/"
           f"{res['eps_optical']:g}; charges x {res['charge_scale']:.3f} ({res['screening']})")
@@ -427,6 +428,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--unknown", choices=["error", "neutral"], default=el["unknown_residues"],
                    help="a residue without a charge source: stop, or leave it uncharged")
     p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
+    p.add_argument("--axial-ligands", action="store_true",
+                   help="add the metal-coordinating side chains to each QM model")
     p.add_argument("--top", type=int, default=el["top_residues"],
                    help=f"residues listed per pigment (default {el['top_residues']})")
     p.add_argument("--cache", default="siteshift_cache",

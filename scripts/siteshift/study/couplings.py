@@ -25,7 +25,7 @@ from ..interactions.couplings import couple
 from ..interactions.excitons import exciton_states, spectra
 from ..interactions.transitions import SiteTransitions, site_transitions
 from ..qm.scf import build_molecule
-from .stages import load_response
+from .stages import cached_excite, load_response
 
 log = logging.getLogger("siteshift")
 
@@ -92,7 +92,7 @@ def cached_transitions(res: dict, qm_hash: str, rec: dict, cache_dir,
         st.save(cached)
         log.info("%s: transition densities fitted (%s, %d functions) and transition charges "
                  "(RMS %s Eh/e) in %.1f s", rec["pigment_id"], auxbasis,
-                 st.aux_coeffs.shape[1], np.array2string(st.charge_rms, precision=1),
+                 st.aux_coeffs.shape[1], " ".join(f"{v:.1e}" for v in st.charge_rms),
                  time.perf_counter() - t0)
     else:
         log.info("%s: transition densities reused from %s", rec["pigment_id"], cached)
@@ -196,8 +196,10 @@ def excitons_stage(transition_files, site_jsons, environment_jsons, out_json, cf
     return out
 
 
-def coupling_tables(exciton_files, out_couplings, out_states, out_spectra):
-    """couplings.tsv, exciton_states.tsv and exciton_spectra.tsv of every variant."""
+def coupling_tables(exciton_files, out_couplings, out_states, out_spectra, dimer_files=(),
+                    out_dimers=None):
+    """couplings.tsv, exciton_states.tsv and exciton_spectra.tsv of every variant (and
+    dimers.tsv of the dimers computed whole)."""
     crow, srow, prow = [], [], []
     for f in exciton_files:
         r = io.read_json(f)
@@ -232,3 +234,91 @@ def coupling_tables(exciton_files, out_couplings, out_states, out_spectra):
     pd.DataFrame(srow, columns=STATE_COLUMNS).to_csv(out_states, sep="\t", index=False,
                                                       float_format="%.6g")
     pd.DataFrame(prow).to_csv(out_spectra, sep="\t", index=False, float_format="%.6g")
+    if out_dimers:
+        dimer_rows(dimer_files).to_csv(out_dimers, sep="\t", index=False, float_format="%.6g")
+
+
+DIMER_COLUMNS = ["variant", "dimer", "pigment_a", "pigment_b", "band", "eps_static",
+                 "eps_optical", "energy_a_ev", "energy_b_ev", "dimer_state_lower",
+                 "dimer_state_upper", "energy_lower_ev", "energy_upper_ev", "splitting_cm1",
+                 "j_supermolecular_cm1", "j_tdc_cm1", "model_splitting_cm1",
+                 "intensity_ratio_upper_lower", "charge_transfer_lower",
+                 "charge_transfer_upper", "share_a_lower", "share_a_upper", "pair_weight_min",
+                 "time_s"]
+
+
+def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=None,
+                cache_dir=None, variant=None, name=None):
+    """Two sites computed whole (one supermolecular TDA in the pair's mean continuum), beside
+    the coupling model of the same two monomers in the same continuum."""
+    from ..interactions.dimer import excite_dimer, model_pair
+    from .config import qm_settings
+    cp = fill(cfg, "couplings")
+    t0 = time.perf_counter()
+    recs = [io.read_json(m) for m in models]
+    diel = [io.read_json(e)["dielectric"] for e in environments]
+    eps_s = float(np.mean([d["eps_static"] for d in diel]))
+    eps_o = float(np.mean([d["eps_optical"] for d in diel]))
+    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    sites, resp, ks, res_m = [], [], [], []
+    for rec in recs:
+        s = qm_settings(qm, eps_s, eps_o, omega, rec.get("nstates_default"))
+        res, h, arrays = cached_excite(rec, s, cache_dir, label=f"{rec['pigment_id']} "
+                                       f"(monomer of dimer {name})")
+        st = cached_transitions(res, h, rec, cache_dir, cp["auxbasis"])
+        k = pick_state(res["states"], cp["band"])["index"] - 1
+        sites.append(st)
+        ks.append(k)
+        res_m.append(res)
+        resp.append({**arrays, "energies_ev": st.energies_ev})
+    row = couple(sites[0], sites[1], [ks[0]], [ks[1]], screening="none")[0]
+    s = qm_settings(qm, eps_s, eps_o, omega)
+    s.nstates = 2 * max(len(r["states"]) for r in res_m)
+    log.info("dimer %s (%s + %s): one TDA of %d atoms, %d states, eps %.2f/%.2f",
+             name, recs[0]["pigment_id"], recs[1]["pigment_id"],
+             sum(len(r["elements"]) for r in recs), s.nstates, eps_s, eps_o)
+    out, res = excite_dimer(*[(r["elements"], r["coords_A"], r["charge"]) for r in recs], s,
+                            resp[0], resp[1], ks[0], ks[1], log=log.info)
+    lo, up = model_pair(row["energy_a_ev"], row["energy_b_ev"], row["j_tdc_vacuum_cm1"])
+    out.update(variant=variant, dimer=name, pigments=[r["pigment_id"] for r in recs],
+               band=cp["band"], eps_static=eps_s, eps_optical=eps_o,
+               monomer_states=[k + 1 for k in ks],
+               monomer_energies_ev=[row["energy_a_ev"], row["energy_b_ev"]],
+               coupling=row, model_pair_ev=[lo, up],
+               model_splitting_cm1=(up - lo) * EV2CM1,
+               note=("the coupling model uses the unscreened transition-density J: in the "
+                     "supermolecule both monomers sit in one continuum, which screens their "
+                     "interaction itself"),
+               dimer_result={k: v for k, v in res.items() if not k.startswith("_")},
+               time_s=round(time.perf_counter() - t0, 2))
+    io.write_json(out_json, out)
+    log.info("dimer %s: pair S%d/S%d split %.1f cm⁻¹ (J %+.1f; model %.1f cm⁻¹ from J_tdc "
+             "%+.1f), CT %.3f/%.3f, in %.1f s", name, *out["pair"], out["splitting_cm1"],
+             out["j_supermolecular_cm1"], out["model_splitting_cm1"],
+             row["j_tdc_vacuum_cm1"], *out["charge_transfer_pair"], out["time_s"])
+    return out
+
+
+def dimer_rows(dimer_files) -> pd.DataFrame:
+    rows = []
+    for f in dimer_files:
+        d = io.read_json(f)
+        lo, up = (d["states"][i - 1] for i in d["pair"])
+        rows.append({"variant": d["variant"], "dimer": d["dimer"],
+                     "pigment_a": d["pigments"][0], "pigment_b": d["pigments"][1],
+                     "band": d["band"], "eps_static": d["eps_static"],
+                     "eps_optical": d["eps_optical"],
+                     "energy_a_ev": d["monomer_energies_ev"][0],
+                     "energy_b_ev": d["monomer_energies_ev"][1],
+                     "dimer_state_lower": lo["state"], "dimer_state_upper": up["state"],
+                     "energy_lower_ev": lo["energy_ev"], "energy_upper_ev": up["energy_ev"],
+                     "splitting_cm1": d["splitting_cm1"],
+                     "j_supermolecular_cm1": d["j_supermolecular_cm1"],
+                     "j_tdc_cm1": d["coupling"]["j_tdc_vacuum_cm1"],
+                     "model_splitting_cm1": d["model_splitting_cm1"],
+                     "intensity_ratio_upper_lower": d["intensity_ratio_upper_lower"],
+                     "charge_transfer_lower": lo["charge_transfer"],
+                     "charge_transfer_upper": up["charge_transfer"],
+                     "share_a_lower": lo["share_a"], "share_a_upper": up["share_a"],
+                     "pair_weight_min": min(d["pair_weights"]), "time_s": d["time_s"]})
+    return pd.DataFrame(rows, columns=DIMER_COLUMNS)

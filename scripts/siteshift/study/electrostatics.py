@@ -197,7 +197,7 @@ def embedded_stage(model_json, environment_json, charges_tsv, out_json, qm: dict
 
 def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None,
                      eps_optical=None, el=None, cache_dir="siteshift_cache", altloc=None,
-                     top=10):
+                     top=10, axial_ligands=False):
     """First-order electrostatic shift of every pigment of a structure, by residue, with one
     relaxed difference density per pigment type (computed once in a uniform continuum and kept
     in cache_dir) carried to each copy by superposing its QM model.
@@ -205,8 +205,11 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     Every copy's charges (all atoms but its own pigment) are moved into the frame of the
     type's reference copy by the least-squares superposition of the two QM models' heavy atoms
     (Kabsch), so a copy whose geometry differs from the reference's is approximated by the
-    reference's density (the RMSD is reported)."""
+    reference's density (the RMSD is reported). axial_ligands: the metal's coordinating side
+    chains join each QM model (their charges then leave the embedding set)."""
     from pathlib import Path
+
+    from ..structures.qmmodel import add_axial_ligands
 
     from ..structures.inventory import model_for, pigment_residues
     from ..structures.qmmodel import kabsch
@@ -225,7 +228,11 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     models = {}
     for p in pigs:
         try:
-            models[p.id] = (p, model_for(p, library))
+            m = model_for(p, library)
+            if axial_ligands:
+                m = add_axial_ligands(m, library[p.code],
+                                      atoms[~np.isin(atoms.indices, p.atoms.indices)])
+            models[p.id] = (p, m)
         except ValueError as exc:
             log.warning("%s: no QM model (%s); its charges and its shift are left out", p.id,
                         exc)

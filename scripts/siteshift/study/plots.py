@@ -155,7 +155,8 @@ def plot_couplings(exciton_files, out_png, out_svg=None):
         lim = max(1e-9, np.abs(J).max())
         im = ax.imshow(J, cmap="RdBu_r", vmin=-lim, vmax=lim)
         for (i, j), t in text.items():
-            ax.text(j, i, t, ha="center", va="center", fontsize=6)
+            ax.text(j, i, t, ha="center", va="center", fontsize=6,
+                    color="white" if abs(J[i, j]) > 0.5 * lim else "black")
         ax.set_xticks(range(len(ids)), ids, rotation=30, ha="right", fontsize=7)
         ax.set_yticks(range(len(ids)), ids, fontsize=7)
         ax.set_title(f"{r['variant']}: J ({r['route']}, screening {r['screening']['model']})",
@@ -184,7 +185,8 @@ def plot_exciton_states(exciton_files, out_png, out_svg=None, group="all"):
                       fontsize=6)
         ax.set_ylabel("site weight c²")
         ax.set_title(f"{r['variant']} ({group}): exciton states", fontsize=8)
-        ax.legend(fontsize=6, frameon=False)
+        ax.legend(fontsize=6, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.16),
+                  ncol=min(4, len(g["sites"])))
     _save(fig, out_png, out_svg)
 
 
