@@ -27,6 +27,7 @@ wildcard_constraints:
     variant="[A-Za-z0-9][A-Za-z0-9._-]*",
     pigment="[A-Za-z0-9]+_[A-Z0-9]{1,5}-?[0-9]+[A-Za-z]?",
     code="[A-Z0-9]{1,5}",
+    dimer="[A-Za-z0-9_-]+",
 
 
 def structure_of(wildcards):
@@ -141,10 +142,17 @@ def sweep_pigments(variant):
 
 
 def all_sweeps(wildcards):
+    """Every pigment's ε sweep, and every dimer's (couplings.dimers) in the variants that have
+    both pigments."""
     return [
         f"{RESULTS}/{v}/pigments/{p}/eps_sweep.json"
         for v in VARIANTS
         for p in sweep_pigments(v)
+    ] + [
+        f"{RESULTS}/{v}/dimers/{name}.eps_sweep.json"
+        for v in VARIANTS
+        for name, pair in DIMERS.items()
+        if set(pair) <= set(pigments_of(v))
     ]
 
 

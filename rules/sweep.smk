@@ -27,6 +27,33 @@ rule sweep_epsilon:
         "../scripts/sweep_epsilon.py"
 
 
+rule sweep_dimer:
+    input:
+        models=lambda w: [f"{RESULTS}/{w.variant}/pigments/{p}/qm_model.json"
+                          for p in DIMERS[w.dimer]],
+        tuning=dimer_tuning,
+    output:
+        json=f"{RESULTS}/{{variant}}/dimers/{{dimer}}.eps_sweep.json",
+    log:
+        f"{LOGS}/sweep_dimer/{{variant}}/{{dimer}}.log",
+    benchmark:
+        f"{BENCH}/sweep_dimer/{{variant}}/{{dimer}}.tsv"
+    threads: QM["threads"]
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=qm_runtime,
+    params:
+        qm=QM,
+        grid=SWEEP["eps_static"],
+        n2=SWEEP["n2"],
+        couplings=COUPLINGS,
+        cache=f"{RESULTS}/qm_cache",
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/sweep_dimer.py"
+
+
 rule tabulate_sweep:
     input:
         inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),

@@ -37,7 +37,9 @@ def study(root, tmp_path_factory):
                     "measure_cold_start": True,
                     "pigments": ["A_HC4101", "B_HC4101"],
                     "targets": [{"name": "split", "kind": "branch", "pair": "HC4-pocket",
-                                 "variant": "wt", "band": "S1", "value_ev": 0.0}]}
+                                 "variant": "wt", "band": "S1", "value_ev": 0.0},
+                                {"name": "pair-split", "kind": "dimer_splitting",
+                                 "dimer": "pocket-pair", "variant": "wt", "value_ev": 0.001}]}
     (work / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     p = _snakemake(root, work)
     assert p.returncode == 0, p.stderr[-4000:]
@@ -166,6 +168,11 @@ def test_coupling_outputs(study):
 
 def test_eps_sweep_outputs(study):
     sw = pd.read_csv(study / "results/tables/eps_sweep.tsv", sep="\t")
+    # the dimer computed whole is swept too: its splitting against ε (couplings.dimers)
+    dim = sw[sw.band == "dimer_splitting"]
+    assert set(dim.pigment_id) == {"pocket-pair"} and set(dim.eps_static) == {2.0, 8.0}
+    assert (dim.energy_ev > 0).all() and set(dim.variant) == {"wt", "A_I6E"}
+    sw = sw[sw.band != "dimer_splitting"]
     assert set(sw.eps_static) == {2.0, 8.0}
     assert set(sw.variant) == {"wt", "A_I6E"}
     s1 = sw[(sw.band == "S1") & (sw.variant == "wt") & (sw.pigment_id == "A_HC4101")]
@@ -182,6 +189,10 @@ def test_eps_sweep_outputs(study):
     # the two pockets hold exact two-fold copies of the pigment, and in a uniform continuum
     # nothing else distinguishes them: their splitting cannot depend on ε
     assert tg.iloc[0].status.startswith("computed value does not depend on ε")
+    pair = tg[tg.kind == "dimer_splitting"].iloc[0]
+    assert pair.band == "dimer_splitting" and pair.eps_min_scanned == 2.0
+    assert pair.status in ("ok", "not bracketed by the scanned ε range") or \
+        pair.status.startswith("computed value does not depend")
     a = sw[(sw.pigment_id == "A_HC4101") & (sw.variant == "wt") & (sw.band == "S1")]
     b = sw[(sw.pigment_id == "B_HC4101") & (sw.variant == "wt") & (sw.band == "S1")]
     # (to the convergence tolerances: the two sweeps start from different site densities, and

@@ -45,6 +45,19 @@ def check_config(config: dict, root=".") -> dict:
         if trip[1] == trip[2]:
             raise ConfigError(f"config key 'branches.pairs': pair {trip[0]!r} names "
                               f"{trip[1]} twice")
+    import re
+    dimers = {d[0] for d in (config.get("couplings") or {}).get("dimers", [])}
+    for d in (config.get("couplings") or {}).get("dimers", []):
+        if not re.fullmatch(r"[A-Za-z0-9_-]+", d[0]) or d[1] == d[2]:
+            raise ConfigError(f"config key 'couplings.dimers': {d} needs a name of letters, "
+                              "digits, '_' or '-' and two different pigment ids")
+    for k, t in enumerate((config.get("sweep") or {}).get("targets", [])):
+        if t.get("kind") in ("branch", "site") and not t.get("band"):
+            raise ConfigError(f"config key 'sweep.targets[{k}]': kind {t['kind']} needs a band "
+                              "(Qy, Qx, bright or S1)")
+        if t.get("kind") == "dimer_splitting" and t.get("dimer") not in dimers:
+            raise ConfigError(f"config key 'sweep.targets[{k}].dimer': {t.get('dimer')!r} is "
+                              f"not in couplings.dimers {sorted(dimers)}")
     cp = config.get("couplings") or {}
     if (cp.get("enabled") and cp.get("site_energies") == "embedded"
             and not (config.get("electrostatics") or {}).get("enabled")):

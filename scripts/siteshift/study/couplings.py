@@ -247,55 +247,86 @@ DIMER_COLUMNS = ["variant", "dimer", "pigment_a", "pigment_b", "band", "eps_stat
                  "time_s"]
 
 
-def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=None,
-                cache_dir=None, variant=None, name=None):
-    """Two sites computed whole (one supermolecular TDA in the pair's mean continuum), beside
-    the coupling model of the same two monomers in the same continuum."""
+def dimer_at(recs, qm: dict, eps_s, eps_o, omega, cp: dict, cache_dir=None, label=""):
+    """One supermolecular TDA of two QM models in a continuum (ε_static, ε_optical), with the
+    monomers in the same continuum and their transition-density coupling model."""
     from ..interactions.dimer import excite_dimer, model_pair
     from .config import qm_settings
-    cp = fill(cfg, "couplings")
     t0 = time.perf_counter()
-    recs = [io.read_json(m) for m in models]
-    diel = [io.read_json(e)["dielectric"] for e in environments]
-    eps_s = float(np.mean([d["eps_static"] for d in diel]))
-    eps_o = float(np.mean([d["eps_optical"] for d in diel]))
-    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
     sites, resp, ks, res_m = [], [], [], []
     for rec in recs:
         s = qm_settings(qm, eps_s, eps_o, omega, rec.get("nstates_default"))
         res, h, arrays = cached_excite(rec, s, cache_dir, label=f"{rec['pigment_id']} "
-                                       f"(monomer of dimer {name})")
+                                       f"(monomer of {label})")
         st = cached_transitions(res, h, rec, cache_dir, cp["auxbasis"])
-        k = pick_state(res["states"], cp["band"])["index"] - 1
+        ks.append(pick_state(res["states"], cp["band"])["index"] - 1)
         sites.append(st)
-        ks.append(k)
         res_m.append(res)
         resp.append({**arrays, "energies_ev": st.energies_ev})
     row = couple(sites[0], sites[1], [ks[0]], [ks[1]], screening="none")[0]
     s = qm_settings(qm, eps_s, eps_o, omega)
     s.nstates = 2 * max(len(r["states"]) for r in res_m)
-    log.info("dimer %s (%s + %s): one TDA of %d atoms, %d states, eps %.2f/%.2f",
-             name, recs[0]["pigment_id"], recs[1]["pigment_id"],
+    log.info("%s (%s + %s): one TDA of %d atoms, %d states, eps %.2f/%.2f", label,
+             recs[0]["pigment_id"], recs[1]["pigment_id"],
              sum(len(r["elements"]) for r in recs), s.nstates, eps_s, eps_o)
     out, res = excite_dimer(*[(r["elements"], r["coords_A"], r["charge"]) for r in recs], s,
                             resp[0], resp[1], ks[0], ks[1], log=log.info)
     lo, up = model_pair(row["energy_a_ev"], row["energy_b_ev"], row["j_tdc_vacuum_cm1"])
-    out.update(variant=variant, dimer=name, pigments=[r["pigment_id"] for r in recs],
-               band=cp["band"], eps_static=eps_s, eps_optical=eps_o,
-               monomer_states=[k + 1 for k in ks],
+    out.update(pigments=[r["pigment_id"] for r in recs], band=cp["band"],
+               eps_static=eps_s, eps_optical=eps_o, monomer_states=[k + 1 for k in ks],
                monomer_energies_ev=[row["energy_a_ev"], row["energy_b_ev"]],
-               coupling=row, model_pair_ev=[lo, up],
-               model_splitting_cm1=(up - lo) * EV2CM1,
-               note=("the coupling model uses the unscreened transition-density J: in the "
-                     "supermolecule both monomers sit in one continuum, which screens their "
-                     "interaction itself"),
+               coupling=row, model_pair_ev=[lo, up], model_splitting_cm1=(up - lo) * EV2CM1,
                dimer_result={k: v for k, v in res.items() if not k.startswith("_")},
                time_s=round(time.perf_counter() - t0, 2))
-    io.write_json(out_json, out)
-    log.info("dimer %s: pair S%d/S%d split %.1f cm⁻¹ (J %+.1f; model %.1f cm⁻¹ from J_tdc "
-             "%+.1f), CT %.3f/%.3f, in %.1f s", name, *out["pair"], out["splitting_cm1"],
+    log.info("%s: pair S%d/S%d split %.1f cm⁻¹ (J %+.1f; model %.1f cm⁻¹ from J_tdc %+.1f), "
+             "CT %.3f/%.3f, in %.1f s", label, *out["pair"], out["splitting_cm1"],
              out["j_supermolecular_cm1"], out["model_splitting_cm1"],
              row["j_tdc_vacuum_cm1"], *out["charge_transfer_pair"], out["time_s"])
+    return out
+
+
+def _omega(qm, tuning_json):
+    return io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+
+
+def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=None,
+                cache_dir=None, variant=None, name=None):
+    """Two sites computed whole (one supermolecular TDA in the pair's mean continuum), beside
+    the coupling model of the same two monomers in the same continuum."""
+    cp = fill(cfg, "couplings")
+    recs = [io.read_json(m) for m in models]
+    diel = [io.read_json(e)["dielectric"] for e in environments]
+    eps_s = float(np.mean([d["eps_static"] for d in diel]))
+    eps_o = float(np.mean([d["eps_optical"] for d in diel]))
+    out = dimer_at(recs, qm, eps_s, eps_o, _omega(qm, tuning_json), cp, cache_dir,
+                   f"dimer {name}")
+    out.update(variant=variant, dimer=name,
+               note=("the coupling model uses the unscreened transition-density J: in the "
+                     "supermolecule both monomers sit in one continuum, which screens their "
+                     "interaction itself"))
+    io.write_json(out_json, out)
+    return out
+
+
+def dimer_sweep_stage(models, out_json, qm: dict, eps_grid, n2=2.0, cfg=None,
+                      tuning_json=None, cache_dir=None, variant=None, name=None):
+    """A dimer computed whole over a grid of uniform ε_static (ε_optical = min(n², ε)): its
+    splitting against ε, so the ε reproducing a measured splitting can be read off."""
+    cp = fill(cfg, "couplings")
+    recs = [io.read_json(m) for m in models]
+    omega = _omega(qm, tuning_json)
+    points = []
+    for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
+        log.info("dimer %s sweep point %d/%d: eps_static %.2f", name, k + 1, len(eps_grid), eps)
+        d = dimer_at(recs, qm, eps, min(float(n2), eps), omega, cp, cache_dir,
+                     f"dimer {name} at eps {eps:g}")
+        points.append({key: d[key] for key in (
+            "eps_static", "eps_optical", "pair", "splitting_ev", "splitting_cm1",
+            "j_supermolecular_cm1", "model_splitting_cm1", "intensity_ratio_upper_lower",
+            "charge_transfer_pair", "monomer_energies_ev", "time_s")})
+    out = {"variant": variant, "dimer": name, "pigments": [r["pigment_id"] for r in recs],
+           "band": cp["band"], "omega_bohr_inv": omega, "points": points}
+    io.write_json(out_json, out)
     return out
 
 

@@ -9,7 +9,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
 from ..base.io import read_json  # noqa: E402
-from ..base.units import NM_EV  # noqa: E402
+from ..base.units import EV2CM1, NM_EV  # noqa: E402
 from .tables import spectrum  # noqa: E402
 
 
@@ -72,6 +72,15 @@ def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
 def plot_sweep(df, out_png, out_svg=None):
     """Energy against ε_static, one line per variant × pigment × band."""
     fig, ax = plt.subplots(figsize=(5.5, 3.6))
+    dimers = df[df.band == "dimer_splitting"] if len(df) else df
+    df = df[df.band != "dimer_splitting"] if len(df) else df
+    if len(dimers):   # dimers computed whole: their splitting on a second axis (cm⁻¹)
+        ax2 = ax.twinx()
+        for (v, p), g in dimers.groupby(["variant", "pigment_id"]):
+            g = g.sort_values("eps_static")
+            ax2.plot(g.eps_static, g.energy_ev * EV2CM1, "s--", label=f"{v} {p} splitting")
+        ax2.set_ylabel("dimer splitting (cm⁻¹)")
+        ax2.legend(fontsize=7, frameon=False, loc="lower right")
     if len(df):
         bands = df.band.unique()
         use = df[df.band != "S1"] if any(b != "S1" for b in bands) else df

@@ -168,17 +168,32 @@ def sweep_rows(sweep: dict) -> list:
     return rows
 
 
+def dimer_sweep_rows(sweep: dict) -> list:
+    """Rows of a dimer sweep in the ε-sweep table's shape: pigment_id is the dimer's name,
+    band 'dimer_splitting', energy_ev the splitting (eV)."""
+    return [{"variant": sweep["variant"], "pigment_id": sweep["dimer"], "ccd_code": "dimer",
+             "eps_static": p["eps_static"], "eps_optical": p["eps_optical"],
+             "band": "dimer_splitting", "energy_ev": p["splitting_ev"],
+             "omega_bohr_inv": sweep["omega_bohr_inv"]} for p in sweep["points"]]
+
+
 def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
     """The ε (uniform for the sites involved) at which a computed quantity equals a measured one.
 
-    target: {name, kind: "branch" (pair: name of a configured pair, ΔE = E(a) − E(b)) or "site"
-    (pigment: id, E itself), variant, band, value_ev}. Linear interpolation between the
+    target: {name, kind: "branch" (pair: name of a configured pair, ΔE = E(a) − E(b)),
+    "site" (pigment: id, E itself) or "dimer_splitting" (dimer: name of a dimer computed
+    whole, its exciton pair's splitting; band ignored), variant, band, value_ev}. Linear interpolation between the
     bracketing grid points; reports the bracket, or why there is none.
     """
+    band = "dimer_splitting" if target["kind"] == "dimer_splitting" else target["band"]
     out = {"target": target.get("name"), "kind": target["kind"], "variant": target["variant"],
-           "band": target["band"], "value_ev": target["value_ev"]}
-    sv = sweep[(sweep.variant == target["variant"]) & (sweep.band == target["band"])]
-    if target["kind"] == "branch":
+           "band": band, "value_ev": target["value_ev"]}
+    sv = sweep[(sweep.variant == target["variant"]) & (sweep.band == band)] if len(sweep) \
+        else sweep
+    if target["kind"] == "dimer_splitting":
+        curve = sv[sv.pigment_id == target["dimer"]].set_index("eps_static") \
+            .energy_ev.sort_index()
+    elif target["kind"] == "branch":
         a, b = pairs[target["pair"]]
         ea = sv[sv.pigment_id == a].set_index("eps_static").energy_ev
         eb = sv[sv.pigment_id == b].set_index("eps_static").energy_ev
@@ -276,7 +291,8 @@ def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=()):
     """Long table of the ε sweeps and, for each measured target, the ε that reproduces it."""
     rows = []
     for p in sweep_files:
-        rows += sweep_rows(io.read_json(p))
+        d = io.read_json(p)
+        rows += dimer_sweep_rows(d) if "dimer" in d else sweep_rows(d)
     df = pd.DataFrame(rows)
     io.write_tsv(out_tsv, df)
     tg = pd.DataFrame([eps_for_target(df, t, dict((n, (a, b)) for n, a, b in pairs))
