@@ -276,3 +276,48 @@ def test_couple_command_dimer(tmp_path):
     r = _couple_cli(tmp_path, "--dimer")
     d = r["dimer"]
     assert d["splitting_cm1"] == pytest.approx(d["model_splitting_cm1"], rel=0.05)
+
+
+def test_variant_stage_groups_and_dipole_rescaling(monomer, tmp_path):
+    # the per-variant stage over files: couplings of every pair, a configured group, and a
+    # measured dipole strength that rescales one type's transition densities (all routes)
+    import json
+
+    from siteshift.study.couplings import coupling_tables, excitons_stage
+    st, _mol, _r, k = monomer
+    sites, jsons, envs = [], [], []
+    for n, shift in enumerate(([0, 0, 0], [0, 0, 8.0], [0, 0, 30.0])):
+        s = _moved(st, np.array(shift, float))
+        s.pigment_id, s.ccd_code = f"A_BUT{n + 1}", "BUT"
+        s.save(tmp_path / f"t{n}.npz")
+        sites.append(str(tmp_path / f"t{n}.npz"))
+        states = [{"index": i + 1, "energy_ev": float(e),
+                   "band": "bright" if i == k else None} for i, e in enumerate(st.energies_ev)]
+        (tmp_path / f"s{n}.json").write_text(json.dumps({"states": states}))
+        (tmp_path / f"e{n}.json").write_text(json.dumps({"dielectric": {"eps_optical": 2.0}}))
+        jsons.append(str(tmp_path / f"s{n}.json"))
+        envs.append(str(tmp_path / f"e{n}.json"))
+    cfg = {"max_distance_A": 20.0, "groups": {"pair": ["A_BUT1", "A_BUT2"]}}
+    plain = excitons_stage(sites, jsons, envs, tmp_path / "x.json", cfg, variant="v")
+    mu2 = float(np.sum(st.dipole_debye(k) ** 2))
+    cfg["dipole_strength_D2"] = {"BUT": 4.0 * mu2}     # twice the computed dipole
+    scaled = excitons_stage(sites, jsons, envs, tmp_path / "y.json", cfg, variant="v")
+    for p, q in zip(plain["couplings"], scaled["couplings"]):
+        assert q["dipole_scale_a"] == pytest.approx(2.0)
+        for route in ("tdc", "charges", "dipole"):
+            assert q[f"j_{route}_cm1"] == pytest.approx(4.0 * p[f"j_{route}_cm1"], rel=1e-9)
+        assert p["screening_factor"] == 0.5
+    # the 30 Å partner lies beyond max_distance_A: listed, not coupled in the Hamiltonian
+    far = [c for c in plain["couplings"] if c["distance_A"] > 20]
+    assert far and all(c["route_used"] == "beyond cutoff" for c in far)
+    J = np.array(plain["groups"]["all"]["couplings_cm1"])
+    assert J[0, 2] == 0.0 and J[0, 1] != 0.0
+    assert plain["groups"]["pair"]["sites"] == ["A_BUT1", "A_BUT2"]
+    coupling_tables([tmp_path / "x.json"], tmp_path / "c.tsv", tmp_path / "s.tsv",
+                    tmp_path / "p.tsv")
+    import pandas as pd
+    states = pd.read_csv(tmp_path / "s.tsv", sep="\t")
+    assert set(states.group) == {"all", "pair"} and len(states) == 5
+    # the degenerate pair's exciton states are split by 2|J|
+    pair = states[states.group == "pair"].sort_values("energy_cm1")
+    assert np.ptp(pair.energy_cm1) == pytest.approx(2 * abs(J[0, 1]), abs=0.2)  # 6 digits
