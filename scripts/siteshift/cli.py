@@ -250,10 +250,8 @@ def _dimer(args, recs, results, picks, rows, cache):
                     args.eps_optical, args.omega)
     s.nstates = max(2 * len(results[0]["states"]), 4)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
-    out, _res = excite_dimer(
-        [(r["elements"], r["coords_A"], r["charge"]) for r in recs][0],
-        [(r["elements"], r["coords_A"], r["charge"]) for r in recs][1], s, resp[0], resp[1],
-        ka, kb, log=log)
+    site_a, site_b = ((r["elements"], r["coords_A"], r["charge"]) for r in recs)
+    out, _res = excite_dimer(site_a, site_b, s, resp[0], resp[1], ka, kb, log=log)
     row = next(r for r in rows if r["state_a"] == ka + 1 and r["state_b"] == kb + 1)
     lo, up = model_pair(row["energy_a_ev"], row["energy_b_ev"], row["j_tdc_vacuum_cm1"])
     out["model_pair_ev"] = [lo, up]
