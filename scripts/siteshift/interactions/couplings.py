@@ -79,7 +79,7 @@ def charge_coupling(q_a, x_a_A, q_b, x_b_A) -> float:
 
 def cross_coulomb(a: SiteTransitions, b: SiteTransitions) -> np.ndarray:
     """(P_A|Q_B) two-centre Coulomb integrals between the two sites' auxiliary bases."""
-    return gto.intor_cross("int2c2e", a.auxmol(), b.auxmol())
+    return gto.intor_cross("int2c2e", a.auxmol, b.auxmol)
 
 
 def couple(a: SiteTransitions, b: SiteTransitions, states_a=None, states_b=None,

@@ -93,7 +93,7 @@ def excite_dimer(site_a, site_b, settings, response_a, response_b, state_a, stat
     s = replace(settings, nstates=int(nstates or 2 * settings.nstates))
     res = excite(elements, coords, qa + qb, 0, s, log=log, keep_response=True)
     mol = build_molecule(elements, coords, qa + qb, 0, s.basis)
-    nao_a = build_molecule(el_a, xa, qa, 0, s.basis).nao
+    nao_a = int(mol.aoslice_by_atom()[len(el_a) - 1, 3])   # A's functions come first
     mono = [transition_densities(r["mo_coeff"], r["mo_occ"], r["xs"][[k]], symmetric=False)[0]
             for r, k in ((response_a, state_a), (response_b, state_b))]
     e = [st["energy_ev"] for st in res["states"]]

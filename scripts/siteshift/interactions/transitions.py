@@ -20,12 +20,13 @@ Two compact forms are kept per state:
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from pyscf import df, gto, lib
 from pyscf.data import nist
 
-from ..qm.embedding import density_potential
+from ..qm.embedding import density_potential, transition_density
 from ..qm.esp import esp_points, fit_charges
 
 #: Auxiliary basis of the fitted transition densities (Coulomb fitting, covers H–Rn).
@@ -36,11 +37,7 @@ def transition_densities(mo_coeff, mo_occ, xs, symmetric=True) -> np.ndarray:
     """AO transition densities (nstates, nao, nao) of closed-shell TDA amplitudes xs
     (nstates, nocc, nvir), normalised as Σ X² = 1 per state; symmetrised unless told (the
     occupied index first: hole rows, electron columns)."""
-    C = np.asarray(mo_coeff)
-    occ = np.asarray(mo_occ) > 0
-    xs = np.asarray(xs)
-    co, cv = C[:, occ], C[:, ~occ]
-    T = np.sqrt(2.0) * np.einsum("mi,sia,na->smn", co, xs, cv, optimize=True)
+    T = np.array([transition_density(mo_coeff, mo_occ, x) for x in np.asarray(xs)])
     if not symmetric:
         return T
     return 0.5 * (T + T.transpose(0, 2, 1))
@@ -119,28 +116,16 @@ class SiteTransitions:
     def nstates(self):
         return len(self.energies_ev)
 
-    def state(self, band_or_index) -> int:
-        """0-based index of a state given its band name or its 1-based number."""
-        if isinstance(band_or_index, (int, np.integer)) or str(band_or_index).isdigit():
-            k = int(band_or_index) - 1
-            if not 0 <= k < self.nstates:
-                raise KeyError(f"{self.pigment_id}: state {band_or_index} not among the "
-                               f"{self.nstates} computed")
-            return k
-        if band_or_index in self.bands:
-            return self.bands.index(band_or_index)
-        raise KeyError(f"{self.pigment_id}: no state named {band_or_index!r} (bands "
-                       f"{[b for b in self.bands if b]}); name a state number or rerun with "
-                       "more states")
-
     def centre_A(self, k) -> np.ndarray:
         """Centre of state k's transition charges weighted by |q| (Å): where the point dipole
         of the dipole route sits."""
         w = np.abs(self.charges[k])
         return (w[:, None] * self.coords_A).sum(0) / w.sum()
 
+    @cached_property
     def auxmol(self):
-        """The auxiliary basis on the site's atoms (the basis its coefficients refer to)."""
+        """The auxiliary basis on the site's atoms (the basis its coefficients refer to), built
+        once per site however many pairs it joins."""
         return aux_molecule(self.elements, self.coords_A, self.auxbasis)
 
     def dipole_debye(self, k) -> np.ndarray:
