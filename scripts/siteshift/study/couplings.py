@@ -25,7 +25,7 @@ from ..interactions.couplings import couple
 from ..interactions.excitons import exciton_states, spectra
 from ..interactions.transitions import SiteTransitions, site_transitions
 from ..qm.scf import build_molecule
-from .stages import cached_excite, load_response
+from .stages import cached_excite, load_response, study_omega
 
 log = logging.getLogger("siteshift")
 
@@ -285,10 +285,6 @@ def dimer_at(recs, qm: dict, eps_s, eps_o, omega, cp: dict, cache_dir=None, labe
     return out
 
 
-def _omega(qm, tuning_json):
-    return io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
-
-
 def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=None,
                 cache_dir=None, variant=None, name=None):
     """Two sites computed whole (one supermolecular TDA in the pair's mean continuum), beside
@@ -298,7 +294,7 @@ def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=
     diel = [io.read_json(e)["dielectric"] for e in environments]
     eps_s = float(np.mean([d["eps_static"] for d in diel]))
     eps_o = float(np.mean([d["eps_optical"] for d in diel]))
-    out = dimer_at(recs, qm, eps_s, eps_o, _omega(qm, tuning_json), cp, cache_dir,
+    out = dimer_at(recs, qm, eps_s, eps_o, study_omega(qm, tuning_json), cp, cache_dir,
                    f"dimer {name}")
     out.update(variant=variant, dimer=name,
                note=("the coupling model uses the unscreened transition-density J: in the "
@@ -314,7 +310,7 @@ def dimer_sweep_stage(models, out_json, qm: dict, eps_grid, n2=2.0, cfg=None,
     splitting against ε, so the ε reproducing a measured splitting can be read off."""
     cp = fill(cfg, "couplings")
     recs = [io.read_json(m) for m in models]
-    omega = _omega(qm, tuning_json)
+    omega = study_omega(qm, tuning_json)
     points = []
     for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
         log.info("dimer %s sweep point %d/%d: eps_static %.2f", name, k + 1, len(eps_grid), eps)

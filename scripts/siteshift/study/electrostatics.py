@@ -36,7 +36,7 @@ from ..environment.charges import (ChargeSettings, assign_charges, residue_total
                                    site_charges)
 from ..qm.embedding import PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
-from .stages import cached_excite, site_settings
+from .stages import cached_excite, site_settings, study_omega
 
 log = logging.getLogger("siteshift")
 ELECTRO = default("electrostatics")
@@ -55,7 +55,7 @@ def fit_pigment_charges_stage(model_json, out_json, qm: dict, tuning_json=None):
     from ..qm.scf import make_scf, run_scf
     from .config import qm_settings
     rec = io.read_json(model_json)
-    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    omega = study_omega(qm, tuning_json)
     s = qm_settings(qm, 1.0, 1.0, omega)
     t0 = time.perf_counter()
     mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],

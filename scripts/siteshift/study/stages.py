@@ -214,11 +214,17 @@ class _hash_lock:
         return False
 
 
+def study_omega(qm: dict, tuning_json=None):
+    """ω (bohr⁻¹) of a QM job: the tuned one when a tuning result is given, else the
+    configured `qm.omega` (None: the preset's fallback)."""
+    return io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+
+
 def site_settings(rec: dict, dielectric: dict, qm: dict, tuning_json=None) -> ExciteSettings:
     """The continuum-only QM settings of one site: the config's `qm` section, the site's ε and
     the tuned ω (or the configured one)."""
     from .config import qm_settings
-    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    omega = study_omega(qm, tuning_json)
     settings = qm_settings(qm, dielectric["eps_static"], dielectric["eps_optical"], omega,
                            rec.get("nstates_default"))
     if qm.get("gas_phase"):

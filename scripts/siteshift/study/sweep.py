@@ -10,7 +10,7 @@ import numpy as np
 
 from ..base import io
 from ..qm.excite import excite
-from .stages import density_path
+from .stages import density_path, study_omega
 
 log = logging.getLogger("siteshift")
 
@@ -72,7 +72,7 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
     from ..qm.scf import build_molecule, make_scf, run_scf
     from .config import qm_settings
     rec = io.read_json(model_json)
-    omega = io.read_json(tuning_json)["omega_bohr_inv"] if tuning_json else qm.get("omega")
+    omega = study_omega(qm, tuning_json)
     points, dms, xs = [], [], []
     if anchor is not None:
         xs.append(float(anchor[0]))

@@ -182,8 +182,9 @@ def eps_for_target(sweep: pd.DataFrame, target: dict, pairs: dict) -> dict:
 
     target: {name, kind: "branch" (pair: name of a configured pair, ΔE = E(a) − E(b)),
     "site" (pigment: id, E itself) or "dimer_splitting" (dimer: name of a dimer computed
-    whole, its exciton pair's splitting; band ignored), variant, band, value_ev}. Linear interpolation between the
-    bracketing grid points; reports the bracket, or why there is none.
+    whole, its exciton pair's splitting; band ignored), variant, band, value_ev}. Linear
+    interpolation between the bracketing grid points; reports the bracket, or why there is
+    none.
     """
     band = "dimer_splitting" if target["kind"] == "dimer_splitting" else target["band"]
     out = {"target": target.get("name"), "kind": target["kind"], "variant": target["variant"],
