@@ -20,6 +20,7 @@ include: "rules/aggregate.smk"
 include: "rules/sweep.smk"
 include: "rules/electrostatics.smk"
 include: "rules/couplings.smk"
+include: "rules/ions.smk"
 
 
 rule all:

@@ -229,6 +229,8 @@ def optional_targets():
         out += [f"{RESULTS}/tables/couplings.tsv", f"{RESULTS}/plots/exciton_spectra.png"]
     if SWEEP["enabled"]:
         out += [f"{RESULTS}/tables/eps_sweep.tsv", f"{RESULTS}/tables/eps_targets.tsv"]
+    if config["ions"]["enabled"]:
+        out += [f"{RESULTS}/tables/ion_pairs.tsv", f"{RESULTS}/plots/ion_ladder.png"]
     return out
 
 
@@ -278,3 +280,51 @@ def dimer_tuning(wildcards):
         return []
     a = DIMERS[wildcards.dimer][0]
     return f"{RESULTS}/tuning/{code_of(wildcards.variant, a)}.json"
+
+
+# charge-separated-state stage
+
+IONS = config["ions"]
+
+
+def ion_charges(wildcards):
+    """The structure's charges when electrostatics is on (the ions are then embedded like the
+    site calculation), else nothing."""
+    if ELECTRO["enabled"]:
+        return f"{RESULTS}/{wildcards.variant}/charges.tsv"
+    return []
+
+
+def all_ions(wildcards):
+    return [
+        f"{RESULTS}/{v}/pigments/{p}/ions.json"
+        for v in VARIANTS
+        for p in pigments_of(v)
+    ]
+
+
+def all_ion_site_results(wildcards):
+    """The site results whose lowest excitation is each donor's E(D*)."""
+    return [_site_file(v, p) for v in VARIANTS for p in pigments_of(v)]
+
+
+def gap_codes():
+    """Pigment types of the gap check: every computed type of the reference variant."""
+    return sorted(set(inventory_rows(REFERENCE).ccd_code))
+
+
+def all_gaps(wildcards):
+    if not IONS["gap_check"]["enabled"]:
+        return []
+    return [f"{RESULTS}/gaps/{code}.json" for code in gap_codes()]
+
+
+def gap_environment(wildcards):
+    """The environment of the pigment whose model the gap check of a type runs on."""
+    return str(tuning_model(wildcards)).replace("qm_model.json", "environment.json")
+
+
+def gap_tuning(wildcards):
+    if QM["omega"]:
+        return []
+    return f"{RESULTS}/tuning/{wildcards.code}.json"

@@ -166,6 +166,31 @@ def test_coupling_outputs(study):
     assert (d.splitting_cm1 <= 1.2 * d.model_splitting_cm1 + 5.0).all()
 
 
+def test_ion_outputs(study):
+    # the demo's two directions of charge separation between the pocket pigments (23 Å)
+    sites = pd.read_csv(study / "results/tables/ion_sites.tsv", sep="\t")
+    assert len(sites) == 4 and (sites["mode"] == "embedded").all()
+    assert (sites.gap_deltascf_ev > 0).all() and sites.s2_cation.between(0.74, 0.9).all()
+    pairs = pd.read_csv(study / "results/tables/ion_pairs.tsv", sep="\t")
+    assert set(pairs.pair) == {"A-to-B", "B-to-A"} and set(pairs.variant) == {"wt", "A_I6E"}
+    # Weller form: E = IP_D − EA_A + V/ε_c with V ≈ −e²/(4πε₀ R) for two unit charges
+    # 20–27 Å apart (Coulomb's law), ε_c the mean static ε of the two sites
+    assert np.allclose(pairs.energy_ev, pairs.ip_donor_ev - pairs.ea_acceptor_ev
+                       + pairs.coulomb_vacuum_ev / pairs.eps_coulomb)
+    assert (-pairs.coulomb_vacuum_ev).between(14.4 / 27.0, 14.4 / 20.0).all()
+    # the dimer of the same two pigments is listed with its charge-transfer search
+    assert "dimer_ct_state" in pairs
+    br = pd.read_csv(study / "results/tables/ion_branches.tsv", sep="\t")
+    assert len(br) == 2 and set(br.step_a) == {"A-to-B"} and set(br.step_b) == {"B-to-A"}
+    assert np.allclose(br.delta_ev, br.energy_a_ev - br.energy_b_ev)
+    gaps = pd.read_csv(study / "results/tables/gaps.tsv", sep="\t")
+    assert set(gaps.functional) == {"screened", "unscreened"} and gaps.site_eps.any()
+    g1 = gaps[gaps.eps_static == 1.0].set_index("functional")
+    assert g1.loc["screened", "gap_orbital_ev"] == g1.loc["unscreened", "gap_orbital_ev"]
+    for name in ("ion_ladder", "gaps"):
+        assert (study / f"results/plots/{name}.png").stat().st_size > 1000
+
+
 def test_eps_sweep_outputs(study):
     sw = pd.read_csv(study / "results/tables/eps_sweep.tsv", sep="\t")
     # the dimer computed whole is swept too: its splitting against ε (couplings.dimers)

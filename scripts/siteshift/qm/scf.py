@@ -51,8 +51,7 @@ def make_scf(mol, settings: ExciteSettings, functional: SRSH | None = None, solv
     the embedding charges (:class:`siteshift.qm.embedding.PointCharges`) when given."""
     functional = functional or settings.functional
     mf = dft.RKS(mol) if mol.spin == 0 else dft.UKS(mol)
-    if mol.spin == 0:
-        mf._numint = DenseNumInt()
+    mf._numint = DenseNumInt()   # dense-BLAS GGA potentials, closed and open shells
     mf.xc = functional.xc
     mf.grids.level = settings.grid_level
     mf.conv_tol = settings.conv_tol

@@ -11,8 +11,9 @@ block, and does the rest as dense matrix products:
     V_μν = Σ_g w_g [v_ρ φ_μ φ_ν + v_∇ρ · ∇(φ_μ φ_ν)]
 
 with C the occupied orbitals (scaled by √n) when the SCF tags the density with them, otherwise
-from an eigendecomposition of D. Only closed-shell LDA/GGA energies and potentials take this
-path; everything else (open shells, kernels, meta-GGA) is PySCF's own code.
+from an eigendecomposition of D. Closed- and open-shell GGA energies and potentials take this path
+(open shells: the same per spin density, the functional evaluated on both); everything else
+(LDA, kernels of open shells, meta-GGA) is PySCF's own code.
 """
 from __future__ import annotations
 
@@ -188,20 +189,63 @@ class DenseNumInt(numint.NumInt):
             den = rho[0] * weight
             nelec += den.sum()
             excsum += den @ exc
-            wv = weight * vxc
-            wv[0] *= 0.5  # V + Vᵀ below
-            wv = flush_tiny(wv.astype(cdt)) if cdt != np.float64 else wv
-            aow = ao[0] * wv[0][:, None]
-            tmp = np.empty_like(aow)
-            for k in range(1, 4):
-                aow += np.multiply(ao[k], wv[k][:, None], out=tmp)
-            v = ao[0].T @ flush_tiny(aow)
-            if idx is None:
-                vmat += v
-            else:
-                vmat[np.ix_(idx, idx)] += v
+            _add_gga_potential(vmat, ao, idx, weight * vxc, cdt)
         vmat = vmat + vmat.T
         return nelec, excsum, vmat
+
+    def nr_uks(self, mol, grids, xc_code, dms, relativity=0, hermi=1, max_memory=2000,
+               verbose=None):
+        xctype = self._xc_type(xc_code)
+        dm = np.asarray(dms)
+        if (xctype != "GGA" or dm.ndim != 3 or dm.shape[0] != 2 or hermi != 1
+                or np.iscomplexobj(dm)):
+            return super().nr_uks(mol, grids, xc_code, dms, relativity, hermi, max_memory,
+                                  verbose)
+        with all_blas_threads():
+            return self._nr_uks_dense(mol, grids, xc_code, dms, max_memory)
+
+    def _nr_uks_dense(self, mol, grids, xc_code, dms, max_memory):
+        """Open-shell GGA energy and (α, β) potentials: the closed-shell route per spin, with
+        the functional evaluated on both spin densities together."""
+        dm = np.asarray(dms)
+        mo_c, mo_o = getattr(dms, "mo_coeff", None), getattr(dms, "mo_occ", None)
+        factors = [density_factor(dm[s], None if mo_c is None else mo_c[s],
+                                  None if mo_o is None else mo_o[s]) for s in (0, 1)]
+        nao = mol.nao
+        vmat = np.zeros((2, nao, nao))
+        nelec, excsum = np.zeros(2), 0.0
+        cdt = np.dtype(self.dtype)
+        for ao, idx, weight in self._blocks(mol, grids, max_memory, cdt):
+            rho = np.empty((2, 4, weight.size))
+            for s, (c, sign) in enumerate(factors):
+                ci = c if idx is None else c[idx]
+                rho[s] = gga_density(ao, ci.astype(cdt), sign.astype(cdt))
+            exc, vxc = self.eval_xc_eff(xc_code, rho, deriv=1, xctype="GGA", spin=1)[:2]
+            flush_tiny(vxc)
+            den = rho[:, 0] * weight
+            nelec += den.sum(axis=1)
+            excsum += den.sum(axis=0) @ exc
+            for s in (0, 1):
+                _add_gga_potential(vmat[s], ao, idx, weight * vxc[s], cdt)
+        vmat = vmat + vmat.transpose(0, 2, 1)
+        return nelec, excsum, vmat
+
+
+def _add_gga_potential(vmat, ao, idx, wv, cdt):
+    """Add ½ V of one grid block to vmat (the caller adds Vᵀ): V_μν = Σ_g [wv_ρ φ_μ φ_ν +
+    wv_∇ρ · ∇(φ_μ φ_ν)] with wv the weighted functional derivatives (4, ng)."""
+    wv = np.array(wv, dtype=np.float64)
+    wv[0] *= 0.5  # V + Vᵀ by the caller
+    wv = flush_tiny(wv.astype(cdt)) if cdt != np.float64 else wv
+    aow = ao[0] * wv[0][:, None]
+    tmp = np.empty_like(aow)
+    for k in range(1, 4):
+        aow += np.multiply(ao[k], wv[k][:, None], out=tmp)
+    v = ao[0].T @ flush_tiny(aow)
+    if idx is None:
+        vmat += v
+    else:
+        vmat[np.ix_(idx, idx)] += v
 
 
 class MOKernel:

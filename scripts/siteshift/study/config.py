@@ -63,7 +63,25 @@ def check_config(config: dict, root=".") -> dict:
             and not (config.get("electrostatics") or {}).get("enabled")):
         raise ConfigError("config key 'couplings.site_energies': embedded needs "
                           "electrostatics.enabled: true (or use auto/continuum)")
+    _check_ions(config.get("ions") or {})
     return config
+
+
+def _check_ions(ions: dict):
+    ce = ions.get("coulomb_eps", "static")
+    if isinstance(ce, str) and ce not in ("static", "optical"):
+        raise ConfigError(f"config key 'ions.coulomb_eps': {ce!r} is neither static, optical "
+                          "nor a number >= 1")
+    if not isinstance(ce, str) and ce < 1.0:
+        raise ConfigError(f"config key 'ions.coulomb_eps': {ce} < 1 (a dielectric constant)")
+    names = [p[0] for p in ions.get("pairs", [])]
+    for p in ions.get("pairs", []):
+        if p[1] == p[2]:
+            raise ConfigError(f"config key 'ions.pairs': pair {p[0]!r} has {p[1]} as donor and "
+                              "acceptor; name two different pigments")
+    if len(set(names)) != len(names):
+        raise ConfigError(f"config key 'ions.pairs': names repeat ({names}); give each pair its "
+                          "own name")
 
 
 def _check_mutations(name, v, variants, root):

@@ -233,3 +233,59 @@ def plot_exciton_spectra(exciton_files, out_png, out_svg=None, group="all"):
     a1.set_title(f"Exciton absorption and CD ({group}); sticks: exciton states (half height), "
                  "▼ site energies", fontsize=8)
     _save(fig, out_png, out_svg)
+
+
+def plot_ion_ladder(pairs: pd.DataFrame, branches: pd.DataFrame, out_png, out_svg=None):
+    """Per variant, each branch's energy ladder side by side: the donor's lowest excitation
+    (D*) and the ion pairs (D⁺A⁻) of its steps, as levels in eV; a step without its mirror is
+    drawn in the middle."""
+    variants = sorted(pairs.variant.unique()) if len(pairs) else []
+    fig, axes = plt.subplots(1, max(1, len(variants)), figsize=(3.2 * max(1, len(variants)), 3.8),
+                             sharey=True, squeeze=False)
+    for ax, v in zip(axes[0], variants):
+        g = pairs[pairs.variant == v]
+        br = branches[branches.variant == v] if len(branches) else branches
+        col = {}
+        for r in br.itertuples():
+            col[r.step_a], col[r.step_b] = 0.0, 1.0
+        for r in g.itertuples():
+            x = col.get(r.pair, 0.5)
+            ax.hlines(r.energy_ev, x - 0.3, x + 0.3, color="C3", lw=2)
+            ax.annotate(f"{r.donor}⁺{r.acceptor}⁻", (x, r.energy_ev), fontsize=6,
+                        ha="center", va="bottom")
+            if r.donor_excitation_ev == r.donor_excitation_ev and r.donor_excitation_ev:
+                ax.hlines(r.donor_excitation_ev, x - 0.3, x + 0.3, color="C0", lw=2)
+                ax.annotate(f"{r.donor}*", (x, r.donor_excitation_ev), fontsize=6,
+                            ha="center", va="top")
+        ax.set_xticks([0, 0.5, 1] if col else [0.5])
+        ax.set_xticklabels(["branch A", "", "branch B"] if col else ["pairs"])
+        ax.set_xlim(-0.5, 1.5)
+        ax.set_title(str(v), fontsize=9)
+        ax.grid(alpha=0.3, axis="y")
+    axes[0][0].set_ylabel("energy above the ground state (eV)")
+    if not variants:
+        axes[0][0].text(0.5, 0.5, "no ion pairs configured", ha="center", va="center",
+                        transform=axes[0][0].transAxes)
+    _save(fig, out_png, out_svg)
+
+
+def plot_gaps(gaps: pd.DataFrame, out_png, out_svg=None):
+    """Fundamental gap against ε_static per pigment type: ΔSCF IP − EA and the orbital gap,
+    for the screened functional and the same one unscreened."""
+    fig, ax = plt.subplots(figsize=(5.5, 3.6))
+    if len(gaps):
+        for (code, kind), g in gaps.groupby(["ccd_code", "functional"]):
+            g = g.sort_values("eps_static")
+            ls = "-" if kind == "screened" else "--"
+            ax.plot(g.eps_static, g.gap_deltascf_ev, "o" + ls, color="C0",
+                    label=f"{code} ΔSCF IP−EA ({kind})")
+            ax.plot(g.eps_static, g.gap_orbital_ev, "s" + ls, color="C3",
+                    label=f"{code} orbital gap ({kind})")
+        ax.set_xscale("log")
+        ax.legend(fontsize=7, frameon=False)
+    else:
+        ax.text(0.5, 0.5, "gap check off", ha="center", va="center", transform=ax.transAxes)
+    ax.set_xlabel("ε_static")
+    ax.set_ylabel("gap (eV)")
+    ax.grid(alpha=0.3)
+    _save(fig, out_png, out_svg)

@@ -7,6 +7,8 @@
     siteshift excite ... --point-charges FILE [--charge-scale S]   (embedded in charges)
     siteshift tune XYZ --charge Q --spin S ...
     siteshift electrostatics STRUCTURE [--pigment ID] [--preset demo|full] --json FILE
+    siteshift couple MODEL_A.json MODEL_B.json [--dimer] --json FILE
+    siteshift ions MODEL.json [--eps-static E] [--unscreened] --json FILE
 """
 from __future__ import annotations
 
@@ -16,9 +18,11 @@ from pathlib import Path
 
 import numpy as np
 
+from .pairs import add_pair_commands
+
 
 def _library(args):
-    from .structures.library import load_library
+    from ..structures.library import load_library
     return load_library(args.library)
 
 
@@ -43,8 +47,8 @@ def read_xyz(path):
 
 
 def cmd_inventory(args):
-    from .structures.reading import read_structure
-    from .structures.inventory import take_inventory
+    from ..structures.reading import read_structure
+    from ..structures.inventory import take_inventory
     atoms = read_structure(args.structure, args.altloc)
     rows = take_inventory(atoms, _library(args))
     print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc})")
@@ -57,19 +61,19 @@ def cmd_inventory(args):
               f"{'' if r['multiplicity'] is None else r['multiplicity']:>4}  {r['status']}"
               f"{' - ' + r['problems'] if r['problems'] else ''}")
     if args.json:
-        from .base.io import write_json
+        from ..base.io import write_json
         write_json(args.json, {"structure": args.structure, "altloc": args.altloc,
                                "n_atoms": len(atoms), "pigments": rows})
     if args.tsv:
         import pandas as pd
-        from .structures.inventory import INVENTORY_COLUMNS
-        from .base.io import write_tsv
+        from ..structures.inventory import INVENTORY_COLUMNS
+        from ..base.io import write_tsv
         write_tsv(args.tsv, pd.DataFrame(rows, columns=INVENTORY_COLUMNS))
     return 0
 
 
 def cmd_extract(args):
-    from .study.stages import extract_stage
+    from ..study.stages import extract_stage
     out = Path(args.outdir)
     rec = extract_stage(args.structure, args.pigment, out / "qm_model.xyz", out / "qm_model.json",
                         out / "cluster.pdb", library=_library(args), altloc=args.altloc,
@@ -79,10 +83,10 @@ def cmd_extract(args):
 
 
 def cmd_environment(args):
-    from .environment.dielectric import DielectricModel
-    from .structures.inventory import pigment_residues
-    from .structures.reading import read_structure
-    from .study.stages import measure_site
+    from ..environment.dielectric import DielectricModel
+    from ..structures.inventory import pigment_residues
+    from ..structures.reading import read_structure
+    from ..study.stages import measure_site
     lib = _library(args)
     atoms = read_structure(args.structure, args.altloc)
     pigs, _ = pigment_residues(atoms, lib)
@@ -101,7 +105,7 @@ def cmd_environment(args):
               f"polar={metrics['n_polar_atoms']} charged={metrics['n_charged_groups']} "
               f"waters={metrics['n_waters']} packing={metrics['packing_density']:.2f}")
     if args.json:
-        from .base.io import write_json
+        from ..base.io import write_json
         write_json(args.json, out)
     return 0
 
@@ -109,7 +113,7 @@ def cmd_environment(args):
 def _settings(args):
     """ExciteSettings from the options, through the same translation as the workflow's `qm:`
     section (schema defaults, then the preset, then what the options set)."""
-    from .study.config import qm_settings
+    from ..study.config import qm_settings
     es, eo = (1.0, 1.0) if args.gas else (args.eps_static, args.eps_optical)
     if es is None or eo is None:
         raise SystemExit("error: give --gas or both --eps-static and --eps-optical")
@@ -124,9 +128,9 @@ def _settings(args):
 
 
 def cmd_excite(args):
-    from .qm.excite import excite
-    from .qm.tuning import tune_omega
-    from .base.io import write_json
+    from ..qm.excite import excite
+    from ..qm.tuning import tune_omega
+    from ..base.io import write_json
     el, xyz = read_xyz(args.xyz)
     s = _settings(args)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
@@ -138,7 +142,7 @@ def cmd_excite(args):
         raise SystemExit("error: give --omega W (bohr^-1) or --tune")
     charges = None
     if args.point_charges:
-        from .qm.embedding import read_point_charges
+        from ..qm.embedding import read_point_charges
         charges = read_point_charges(args.point_charges, scale=args.charge_scale)
     res = excite(el, xyz, args.charge, args.spin, s, log=log, charges=charges)
     if tuned:
@@ -156,10 +160,10 @@ def cmd_excite(args):
 
 
 def cmd_electrostatics(args):
-    from .base.io import write_json
-    from .base.units import EV2CM1
-    from .study.electrostatics import survey_structure
-    from .study.stages import setup_logging
+    from ..base.io import write_json
+    from ..base.units import EV2CM1
+    from ..study.electrostatics import survey_structure
+    from ..study.stages import setup_logging
     if args.verbose:
         setup_logging()
     qm = {"preset": args.preset, "omega": args.omega}
@@ -189,85 +193,10 @@ def cmd_electrostatics(args):
     return 0
 
 
-def cmd_couple(args):
-    """Couplings of two sites' transitions by the three routes (and the dimer computed whole)."""
-    from .base.io import read_json, write_json
-    from .interactions.couplings import couple
-    from .study.config import qm_settings
-    from .study.couplings import cached_transitions, pick_state
-    from .study.stages import cached_excite, setup_logging
-    from pathlib import Path
-    if args.verbose:
-        setup_logging()
-    qm = {"preset": args.preset, "omega": args.omega}
-    cache = Path(args.cache)
-    sites, results, recs = [], [], []
-    for path in (args.model_a, args.model_b):
-        rec = read_json(path)
-        s = qm_settings(qm, args.eps_static, args.eps_optical, qm.get("omega"),
-                        rec.get("nstates_default"))
-        res, h, _arrays = cached_excite(rec, s, cache, label=rec["pigment_id"])
-        res["qm_hash"] = h
-        sites.append(cached_transitions(res, h, rec, cache))
-        results.append(res)
-        recs.append(rec)
-    picks = []
-    for res, want in zip(results, args.states or ["auto", "auto"]):
-        picks.append(None if want == "all" else [pick_state(res["states"], want)["index"] - 1])
-    rows = couple(sites[0], sites[1], picks[0], picks[1], screening=args.screening,
-                  eps_optical=args.eps_optical)
-    print(f"{'state_a':>8s} {'state_b':>8s} {'R_A':>7s} {'kappa':>7s} {'mu_a_D':>7s} "
-          f"{'mu_b_D':>7s} {'J_tdc':>9s} {'J_charges':>9s} {'J_dipole':>9s}  cm-1 "
-          f"(screening {args.screening}, x{rows[0]['screening_factor']:.3f})")
-    for r in rows:
-        name = lambda k, b: f"{k}{'/' + b if b else ''}"  # noqa: E731
-        print(f"{name(r['state_a'], r['band_a']):>8s} {name(r['state_b'], r['band_b']):>8s} "
-              f"{r['distance_A']:7.2f} {r['kappa']:7.3f} {r['mu_a_debye']:7.2f} "
-              f"{r['mu_b_debye']:7.2f} {r['j_tdc_cm1']:9.2f} {r['j_charges_cm1']:9.2f} "
-              f"{r['j_dipole_cm1']:9.2f}")
-    out = {"model_a": str(args.model_a), "model_b": str(args.model_b), "couplings": rows,
-           "eps_static": args.eps_static, "eps_optical": args.eps_optical}
-    if args.dimer:
-        out["dimer"] = _dimer(args, recs, results, picks, rows, cache)
-    if args.json:
-        write_json(args.json, out)
-    return 0
-
-
-def _dimer(args, recs, results, picks, rows, cache):
-    """The two sites in one supermolecular TDA, beside the coupling model's pair."""
-    from .base.units import EV2CM1
-    from .interactions.dimer import excite_dimer, model_pair
-    from .study.config import qm_settings
-    from .study.stages import load_response
-    ka, kb = (p[0] if p else 0 for p in picks)
-    resp = []
-    for res, k in zip(results, (ka, kb)):
-        arrays = load_response(cache / f"{res['qm_hash']}.json")
-        resp.append({**arrays, "energies_ev": [s["energy_ev"] for s in
-                                               sorted(res["states"], key=lambda s: s["index"])]})
-    s = qm_settings({"preset": args.preset, "omega": args.omega}, args.eps_static,
-                    args.eps_optical, args.omega)
-    s.nstates = max(2 * len(results[0]["states"]), 4)
-    log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
-    site_a, site_b = ((r["elements"], r["coords_A"], r["charge"]) for r in recs)
-    out, _res = excite_dimer(site_a, site_b, s, resp[0], resp[1], ka, kb, log=log)
-    row = next(r for r in rows if r["state_a"] == ka + 1 and r["state_b"] == kb + 1)
-    lo, up = model_pair(row["energy_a_ev"], row["energy_b_ev"], row["j_tdc_vacuum_cm1"])
-    out["model_pair_ev"] = [lo, up]
-    out["model_splitting_cm1"] = (up - lo) * EV2CM1
-    print(f"dimer (one TDA, {s.nstates} states): pair S{out['pair'][0]}/S{out['pair'][1]} "
-          f"split {out['splitting_cm1']:.1f} cm-1 (J {out['j_supermolecular_cm1']:+.1f}); "
-          f"model (vacuum tdc J {row['j_tdc_vacuum_cm1']:+.1f}) {out['model_splitting_cm1']:.1f}"
-          f" cm-1; charge transfer {out['charge_transfer_pair'][0]:.3f}/"
-          f"{out['charge_transfer_pair'][1]:.3f}")
-    return out
-
-
 def cmd_tune(args):
-    from .qm.tuning import tune_omega
-    from .base.io import write_json
-    from .base.defaults import preset
+    from ..qm.tuning import tune_omega
+    from ..base.io import write_json
+    from ..base.defaults import preset
     el, xyz = read_xyz(args.xyz)
     args.gas, args.omega = True, None
     s = _settings(args)
@@ -287,7 +216,7 @@ def cmd_tune(args):
 def _qm_args(p, excite=True):
     """Options of one QM job; defaults from the study config's schema and the chosen preset
     (siteshift.base.defaults), so a single job and the workflow agree."""
-    from .base.defaults import QM_PRESETS, default
+    from ..base.defaults import QM_PRESETS, default
     qm = default("qm")
     p.add_argument("xyz", help="XYZ file (Å)")
     p.add_argument("--charge", type=int, default=0, help="total charge (e); default 0")
@@ -346,7 +275,7 @@ def _common(p):
 
 def build_parser() -> argparse.ArgumentParser:
     """The command's parser (every default from the study config's schema and presets)."""
-    from .base.defaults import FALLBACK_OMEGA, QM_PRESETS, default
+    from ..base.defaults import FALLBACK_OMEGA, QM_PRESETS, default
     ap = argparse.ArgumentParser(prog="siteshift", description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     _common(ap)
@@ -435,45 +364,22 @@ def build_parser() -> argparse.ArgumentParser:
                         "(default ./siteshift_cache)")
     p.add_argument("--json", help="write the shifts and residue contributions as JSON")
     p.set_defaults(func=cmd_electrostatics)
-    p = add("couple", "excitonic couplings of two sites by three routes (cm⁻¹)")
-    p.add_argument("model_a", help="qm_model.json of the first site (from `extract`)")
-    p.add_argument("model_b", help="qm_model.json of the second site")
-    p.add_argument("--states", nargs=2, metavar=("A", "B"),
-                   help="the coupled state of each: a band name, a state number, auto (Qy, "
-                        "else bright, else the lowest) or all (default: auto auto)")
-    p.add_argument("--preset", choices=sorted(QM_PRESETS), default=default("qm.preset"),
-                   help=f"QM preset (default {default('qm.preset')})")
-    p.add_argument("--omega", type=float, help="ω in bohr⁻¹ (default: the untuned "
-                   f"{FALLBACK_OMEGA})")
-    p.add_argument("--eps-static", type=float, default=default("dielectric.eps_uniform"),
-                   help=f"continuum ε_static (default {default('dielectric.eps_uniform')})")
-    p.add_argument("--eps-optical", type=float, default=default("dielectric.eps_optical"),
-                   help=f"continuum ε_optical, also n² of the screening (default "
-                        f"{default('dielectric.eps_optical')})")
-    scr = default("couplings.screening.model")
-    p.add_argument("--screening", choices=["optical", "distance", "none"], default=scr,
-                   help=f"screening of the couplings (default {scr})")
-    p.add_argument("--dimer", action="store_true",
-                   help="also compute the two sites in one supermolecular TDA and compare")
-    p.add_argument("--cache", default="siteshift_cache",
-                   help="folder keeping QM results between calls (default ./siteshift_cache)")
-    p.add_argument("--json", help="write the couplings (and dimer) as JSON")
-    p.set_defaults(func=cmd_couple)
+    add_pair_commands(add)
     return ap
 
 
 def main(argv=None):
     args = build_parser().parse_args(argv)
-    if args.cmd in ("excite", "tune", "electrostatics", "couple"):
+    if args.cmd in ("excite", "tune", "electrostatics", "couple", "ions"):
         import os
-        from .qm.settings import configure_threads
+        from ..qm.settings import configure_threads
         configure_threads(args.threads or os.cpu_count() or 1)
-    from .environment.charges import ChargeError
-    from .environment.dielectric import DielectricError
-    from .qm.settings import EngineError
-    from .structures.library import LibraryError
-    from .structures.qmmodel import ModelError
-    from .structures.reading import StructureError
+    from ..environment.charges import ChargeError
+    from ..environment.dielectric import DielectricError
+    from ..qm.settings import EngineError
+    from ..structures.library import LibraryError
+    from ..structures.qmmodel import ModelError
+    from ..structures.reading import StructureError
     try:
         return args.func(args)
     except (StructureError, ModelError, EngineError, LibraryError, DielectricError,
