@@ -142,9 +142,9 @@ def sweep_pigments(variant):
 
 
 def all_sweeps(wildcards):
-    """Every pigment's ε sweep, and every dimer's (couplings.dimers) in the variants that have
-    both pigments."""
-    return [
+    """Every pigment's ε sweep, every dimer's (couplings.dimers) in the variants that have
+    both pigments, and with the ion stage every pigment's IP/EA sweep."""
+    out = [
         f"{RESULTS}/{v}/pigments/{p}/eps_sweep.json"
         for v in VARIANTS
         for p in sweep_pigments(v)
@@ -154,6 +154,13 @@ def all_sweeps(wildcards):
         for name, pair in DIMERS.items()
         if set(pair) <= set(pigments_of(v))
     ]
+    if config["ions"]["enabled"]:
+        out += [
+            f"{RESULTS}/{v}/pigments/{p}/ion_sweep.json"
+            for v in VARIANTS
+            for p in sweep_pigments(v)
+        ]
+    return out
 
 
 def all_site_results(wildcards):

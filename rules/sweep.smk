@@ -54,6 +54,31 @@ rule sweep_dimer:
         "../scripts/sweep_dimer.py"
 
 
+rule sweep_ions:
+    input:
+        model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
+        tuning=tuning_input,
+    output:
+        json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/ion_sweep.json",
+    log:
+        f"{LOGS}/sweep_ions/{{variant}}/{{pigment}}.log",
+    benchmark:
+        f"{BENCH}/sweep_ions/{{variant}}/{{pigment}}.tsv"
+    threads: QM["threads"]
+    resources:
+        mem_mb=qm_mem_mb,
+        runtime=qm_runtime,
+    params:
+        qm=QM,
+        grid=SWEEP["eps_static"],
+        n2=SWEEP["n2"],
+        cache=f"{RESULTS}/qm_cache",
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/sweep_ions.py"
+
+
 rule tabulate_sweep:
     input:
         inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
@@ -80,6 +105,7 @@ rule tabulate_sweep:
     params:
         pairs=config["branches"]["pairs"],
         targets=SWEEP["targets"],
+        ion_pairs=config["ions"]["pairs"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

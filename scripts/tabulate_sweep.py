@@ -9,5 +9,6 @@ from siteshift.study.tables import sweep_tables
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 df, _tg = sweep_tables(list(sm.input.sweeps), sm.output.table, sm.output.targets,
-                       pairs=sm.params.pairs, targets=sm.params.targets)
+                       pairs=sm.params.pairs, targets=sm.params.targets,
+                       ion_pairs=sm.params.ion_pairs)
 plot_sweep(df, sm.output.plot, sm.output.plot_svg)

@@ -198,6 +198,21 @@ def test_eps_sweep_outputs(study):
     assert set(dim.pigment_id) == {"pocket-pair"} and set(dim.eps_static) == {2.0, 8.0}
     assert (dim.energy_ev > 0).all() and set(dim.variant) == {"wt", "A_I6E"}
     sw = sw[sw.band != "dimer_splitting"]
+    # with the ion stage on, IP and EA of every swept pigment and the configured ion pairs;
+    # two copies of one pigment in a uniform continuum have one IP (to SCF scatter), and the
+    # ion pair follows IP − EA + V/ε with V ≈ −e²/(4πε₀R), R 20–27 Å (Coulomb's law)
+    ions = sw[sw.band.isin(["IP", "EA", "ion_pair"])]
+    sw = sw[~sw.band.isin(["IP", "EA", "ion_pair"])]
+    assert len(ions[ions.band == "IP"]) == 8 and len(ions[ions.band == "ion_pair"]) == 8
+    ip = ions[(ions.band == "IP") & (ions.variant == "wt")].pivot(
+        index="eps_static", columns="pigment_id", values="energy_ev")
+    assert np.allclose(ip["A_HC4101"], ip["B_HC4101"], atol=1e-4)
+    ea = ions[(ions.band == "EA") & (ions.variant == "wt")].pivot(
+        index="eps_static", columns="pigment_id", values="energy_ev")
+    ab = ions[(ions.pigment_id == "A-to-B") & (ions.variant == "wt")].set_index("eps_static")
+    v = (ab.energy_ev - ip["A_HC4101"] + ea["B_HC4101"]) * ab.index
+    assert (-v).between(14.4 / 27.0, 14.4 / 20.0).all()
+    assert ip["A_HC4101"][8.0] < ip["A_HC4101"][2.0]   # the cation is solvated more at ε 8
     assert set(sw.eps_static) == {2.0, 8.0}
     assert set(sw.variant) == {"wt", "A_I6E"}
     s1 = sw[(sw.band == "S1") & (sw.variant == "wt") & (sw.pigment_id == "A_HC4101")]

@@ -125,6 +125,62 @@ def gap_stage(model_json, environment_json, out_json, qm: dict, eps_points=(1.0,
     return out
 
 
+def ion_sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=None,
+                    cache_dir=None, variant=None):
+    """One site's IP and EA (continuum only) over the ε-sweep grid (ε_optical = min(n², ε)),
+    with the hole and electron charges of each point for the ion pairs of the sweep table."""
+    rec = io.read_json(model_json)
+    points, omega = [], None
+    grid = sorted(float(e) for e in eps_grid)
+    for k, eps in enumerate(grid):
+        log.info("%s ion sweep point %d/%d: eps_static %.2f", rec["pigment_id"], k + 1,
+                 len(grid), eps)
+        settings = site_settings(rec, {"eps_static": eps, "eps_optical": min(float(n2), eps)},
+                                 qm, tuning_json)
+        omega = settings.omega
+        res, h = cached_ionize(rec, settings, cache_dir,
+                               label=f"{rec['pigment_id']} at eps {eps:g}")
+        points.append({"eps_static": eps, "eps_optical": settings.eps_optical, "qm_hash": h,
+                       **{key: res[key] for key in (
+                           "ip_deltascf_ev", "ea_deltascf_ev", "ip_orbital_ev", "ea_orbital_ev",
+                           "hole_charges", "electron_charges")}})
+    out = {"variant": variant, "pigment_id": rec["pigment_id"], "ccd_code": rec["ccd_code"],
+           "ions": True, "omega_bohr_inv": omega, "coords_A": rec["coords_A"], "points": points}
+    io.write_json(out_json, out)
+    return out
+
+
+def ion_sweep_rows(sweeps: list, ion_pairs=()) -> list:
+    """Rows in the ε-sweep table's shape: IP and EA (ΔSCF) per pigment and ε, and the ion
+    pair E(D⁺A⁻) = IP_D − EA_A + V/ε of each configured [name, donor, acceptor] at each ε
+    both were swept at (pigment_id the pair's name, band 'ion_pair')."""
+    rows, by = [], {}
+    for sw in sweeps:
+        by[(sw["variant"], sw["pigment_id"])] = sw
+        for pt in sw["points"]:
+            for band, key in (("IP", "ip_deltascf_ev"), ("EA", "ea_deltascf_ev")):
+                rows.append({"variant": sw["variant"], "pigment_id": sw["pigment_id"],
+                             "ccd_code": sw["ccd_code"], "eps_static": pt["eps_static"],
+                             "eps_optical": pt["eps_optical"], "band": band,
+                             "energy_ev": pt[key], "omega_bohr_inv": sw["omega_bohr_inv"]})
+    for variant in sorted({v for v, _p in by}, key=str):
+        for name, d, a in ion_pairs:
+            if (variant, d) not in by or (variant, a) not in by:
+                continue
+            D, A = by[(variant, d)], by[(variant, a)]
+            pa = {p["eps_static"]: p for p in A["points"]}
+            for pd_ in D["points"]:
+                pa_ = pa.get(pd_["eps_static"])
+                if pa_ is None:
+                    continue
+                r = ion_pair(pd_, pa_, D["coords_A"], A["coords_A"], pd_["eps_static"])
+                rows.append({"variant": variant, "pigment_id": name, "ccd_code": "ion_pair",
+                             "eps_static": pd_["eps_static"], "eps_optical": pd_["eps_optical"],
+                             "band": "ion_pair", "energy_ev": r["energy_ev"],
+                             "omega_bohr_inv": D["omega_bohr_inv"]})
+    return rows
+
+
 def site_rows(ion_files) -> pd.DataFrame:
     rows = []
     for p in ion_files:

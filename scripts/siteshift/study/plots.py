@@ -90,7 +90,7 @@ def plot_sweep(df, out_png, out_svg=None):
         ax.set_xscale("log")
         ax.legend(fontsize=7, frameon=False)
     ax.set_xlabel("ε_static (uniform)")
-    ax.set_ylabel("excitation energy (eV)")
+    ax.set_ylabel("excitation, IP, EA or ion-pair energy (eV)")
     ax.grid(alpha=0.3)
     _save(fig, out_png, out_svg)
 

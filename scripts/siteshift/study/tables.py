@@ -288,12 +288,19 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
     return sites, br, vs
 
 
-def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=()):
-    """Long table of the ε sweeps and, for each measured target, the ε that reproduces it."""
-    rows = []
+def sweep_tables(sweep_files, out_tsv, out_targets, pairs=(), targets=(), ion_pairs=()):
+    """Long table of the ε sweeps (excitations; dimers' splittings; with the ion stage, IP, EA
+    and the ion pairs of ``ion_pairs``) and, for each measured target, the ε that reproduces
+    it."""
+    from .ions import ion_sweep_rows
+    rows, ions = [], []
     for p in sweep_files:
         d = io.read_json(p)
+        if d.get("ions"):
+            ions.append(d)
+            continue
         rows += dimer_sweep_rows(d) if "dimer" in d else sweep_rows(d)
+    rows += ion_sweep_rows(ions, ion_pairs)
     df = pd.DataFrame(rows)
     io.write_tsv(out_tsv, df)
     tg = pd.DataFrame([eps_for_target(df, t, dict((n, (a, b)) for n, a, b in pairs))
