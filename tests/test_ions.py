@@ -216,3 +216,31 @@ def test_open_shell_scf_on_the_fast_path_matches_pyscf():
     ref.kernel()
     assert abs(mf.e_tot - ref.e_tot) < 1e-6
     assert abs(mf.e_tot - ref.e_tot) * HARTREE2EV < 3e-5
+
+
+def test_ions_command(tmp_path, capsys):
+    # `siteshift ions` on a QM model file: screened and unscreened in one uniform continuum;
+    # the second call reuses the cache (same numbers, no SCF)
+    import json
+
+    from siteshift.cli import main
+    el, x = ethylene()
+    model = tmp_path / "qm_model.json"
+    model.write_text(json.dumps({"pigment_id": "X_ETH1", "ccd_code": "ETH", "charge": 0,
+                                 "multiplicity": 1, "elements": el, "coords_A": x.tolist(),
+                                 "band_axes": {}, "nstates_default": 3}))
+    args = ["ions", str(model), "--preset", "demo", "--omega", "0.3", "--eps-static", "4",
+            "--unscreened", "--cache", str(tmp_path / "cache"), "--json",
+            str(tmp_path / "ions.json"), "--threads", "1"]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "screened" in out and "unscreened" in out and "IP_dSCF" in out
+    res = json.loads((tmp_path / "ions.json").read_text())["results"]
+    assert res["screened"]["functional"]["eps_screen"] == 4.0
+    assert res["unscreened"]["functional"]["eps_screen"] == 1.0
+    # both see the same continuum; only the screening of the orbital gap differs
+    assert res["unscreened"]["gap_orbital_ev"] > res["screened"]["gap_orbital_ev"] + 2.0
+    assert main(args) == 0
+    again = json.loads((tmp_path / "ions.json").read_text())["results"]
+    assert again["screened"]["cache"] == "reused"
+    assert again["screened"]["ip_deltascf_ev"] == res["screened"]["ip_deltascf_ev"]

@@ -120,6 +120,12 @@ def cmd_ions(args):
     return 0
 
 
+def _cache_and_json(p, what):
+    p.add_argument("--cache", default="siteshift_cache",
+                   help="folder keeping QM results between calls (default ./siteshift_cache)")
+    p.add_argument("--json", help=f"write {what} as JSON")
+
+
 def add_pair_commands(add):
     """Register `couple` and `ions` with the parser's ``add(name, help)``."""
     from ..base.defaults import FALLBACK_OMEGA, QM_PRESETS, default
@@ -143,9 +149,7 @@ def add_pair_commands(add):
                    help=f"screening of the couplings (default {scr})")
     p.add_argument("--dimer", action="store_true",
                    help="also compute the two sites in one supermolecular TDA and compare")
-    p.add_argument("--cache", default="siteshift_cache",
-                   help="folder keeping QM results between calls (default ./siteshift_cache)")
-    p.add_argument("--json", help="write the couplings (and dimer) as JSON")
+    _cache_and_json(p, "the couplings (and dimer)")
     p.set_defaults(func=cmd_couple)
     p = add("ions", "a site's IP, EA and fundamental gap: ΔSCF ions and frontier orbitals (eV)")
     p.add_argument("model", help="qm_model.json of the site (from `extract`)")
@@ -161,7 +165,5 @@ def add_pair_commands(add):
                         f"{default('dielectric.eps_optical')})")
     p.add_argument("--unscreened", action="store_true",
                    help="also the same functional unscreened (α + β = 1), for comparison")
-    p.add_argument("--cache", default="siteshift_cache",
-                   help="folder keeping QM results between calls (default ./siteshift_cache)")
-    p.add_argument("--json", help="write the ion results as JSON")
+    _cache_and_json(p, "the ion results")
     p.set_defaults(func=cmd_ions)
