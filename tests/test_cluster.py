@@ -26,6 +26,7 @@ def test_jobs_run_as_separate_submissions(root, tmp_path):
     del cfg["variants"]["A_I6E"]
     cfg["electrostatics"]["enabled"] = False   # the continuum-only DAG: its jobs counted below
     cfg["couplings"]["enabled"] = False
+    cfg["ions"]["enabled"] = False
     (tmp_path / "config").mkdir()
     (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     sub = tmp_path / "submit.sh"

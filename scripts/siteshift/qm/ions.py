@@ -26,7 +26,7 @@ from ..base.units import HARTREE2EV
 from .dfjk import CompactDF
 from .esp import esp_charges
 from .functional import SRSH
-from .scf import build_molecule, frontier_ev, make_scf, run_scf
+from .scf import build_molecule, make_scf, run_scf
 from .settings import EngineError, ExciteSettings
 
 #: the three ground states of an ion calculation: name → charge change
@@ -43,6 +43,15 @@ def ion_spin(spin: int) -> int:
 def unscreened(settings: ExciteSettings) -> SRSH:
     """The same range-separated hybrid without screening (α + β = 1), for comparison."""
     return SRSH(settings.alpha, settings.omega, 1.0)
+
+
+def frontier_spin_orbitals_ev(mf):
+    """(highest occupied, lowest unoccupied) orbital energy in eV over both spins: the orbital
+    an electron leaves on ionisation and the one it enters on attachment (for a closed shell the
+    HOMO and LUMO; for a radical the α SOMO and, usually, its empty β partner)."""
+    e = np.asarray(mf.mo_energy).reshape(-1, np.shape(mf.mo_energy)[-1])
+    occ = np.asarray(mf.mo_occ).reshape(e.shape)
+    return e[occ > 0].max() * HARTREE2EV, e[occ == 0].min() * HARTREE2EV
 
 
 def share_fitted_tensors(mf, fitted):
@@ -99,7 +108,7 @@ def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         if dq == 0:
             fitted = getattr(mf, "with_df", None)
             dm_neutral = mf.make_rdm1()
-            homo, lumo = frontier_ev(mf)
+            homo, lumo = frontier_spin_orbitals_ev(mf)
             out["_dm"] = dm_neutral
         energies[name] = float(mf.e_tot)
         s2 = None
