@@ -88,7 +88,7 @@ def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
            "basis": settings.basis, "grid_level": settings.grid_level, "charge": int(charge),
            "spin": int(spin), "ion_spin": ion_spin(spin),
            "embedding_charges": 0 if charges is None else len(charges), "scf": {}}
-    energies, esp, dm_neutral = {}, {}, None
+    energies, esp, dm_neutral, fitted = {}, {}, None, None
     for name, dq in STATES.items():
         q = int(charge) + dq
         s = int(spin) if dq == 0 else ion_spin(spin)
