@@ -282,6 +282,11 @@ def plot_gaps(gaps: pd.DataFrame, out_png, out_svg=None):
             ax.plot(g.eps_static, g.gap_orbital_ev, "s" + ls, color="C3",
                     label=f"{code} orbital gap ({kind})")
         ax.set_xscale("log")
+        from matplotlib.ticker import NullFormatter, ScalarFormatter
+        ax.xaxis.set_major_formatter(ScalarFormatter())
+        ax.xaxis.set_minor_formatter(NullFormatter())
+        eps = sorted(gaps.eps_static.unique())
+        ax.set_xticks(eps, [f"{e:.3g}" for e in eps])
         ax.legend(fontsize=7, frameon=False)
     else:
         ax.text(0.5, 0.5, "gap check off", ha="center", va="center", transform=ax.transAxes)
