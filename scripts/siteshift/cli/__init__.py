@@ -9,6 +9,9 @@
     siteshift electrostatics STRUCTURE [--pigment ID] [--preset demo|full] --json FILE
     siteshift couple MODEL_A.json MODEL_B.json [--dimer] --json FILE
     siteshift ions MODEL.json [--eps-static E] [--unscreened] --json FILE
+
+May import: every layer (base, structures, environment, qm, interactions, study); the top of
+the stack, imported by nothing in the library.
 """
 from __future__ import annotations
 
