@@ -73,7 +73,8 @@ def charge_coupling(q_a, x_a_A, q_b, x_b_A) -> float:
     """Coulomb energy (Hartree) of two sets of point charges (positions in Å)."""
     d = np.linalg.norm(np.asarray(x_a_A)[:, None, :] - np.asarray(x_b_A)[None], axis=-1)
     if d.min() < 0.5:
-        raise ValueError(f"transition charges {d.min():.2f} Å apart: the two sites overlap")
+        raise ValueError(f"charges of two sites {d.min():.2f} Å apart: the two sites overlap "
+                         "(the same pigment twice?)")
     return float(np.asarray(q_a) @ (nist.BOHR / d) @ np.asarray(q_b))
 
 

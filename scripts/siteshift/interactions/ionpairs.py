@@ -19,6 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..base.units import HARTREE2EV
+from .couplings import charge_coupling
 
 #: e²/(4πε₀ Å) in eV (CODATA 2018: Hartree × Bohr in Å)
 COULOMB_EV_A = HARTREE2EV * 0.529177210903
@@ -34,12 +35,8 @@ def pair_distance(x1, x2) -> float:
 
 def coulomb_ev(q1, x1, q2, x2) -> float:
     """Σ_ij q1_i q2_j / |x1_i − x2_j| in eV (charges in e, positions in Å)."""
-    x1, x2 = np.asarray(x1, float).reshape(-1, 3), np.asarray(x2, float).reshape(-1, 3)
-    d = np.linalg.norm(x1[:, None, :] - x2[None], axis=-1)
-    if np.any(d < 0.5):
-        raise ValueError(f"two charges of an ion pair are {d.min():.2f} Å apart: the donor and "
-                         "the acceptor overlap (same pigment twice?)")
-    return float(np.asarray(q1, float) @ (1.0 / d) @ np.asarray(q2, float)) * COULOMB_EV_A
+    return charge_coupling(q1, np.asarray(x1, float).reshape(-1, 3), q2,
+                           np.asarray(x2, float).reshape(-1, 3)) * HARTREE2EV
 
 
 def coulomb_eps(choice, eps_donor: dict, eps_acceptor: dict) -> float:

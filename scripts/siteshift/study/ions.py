@@ -198,17 +198,16 @@ def site_rows(ion_files) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=SITE_COLUMNS)
 
 
-def _lowest_excitation(site_json) -> float | None:
-    if not site_json or not Path(site_json).exists():
+def _lowest_excitation(site: dict | None) -> float | None:
+    if not site:
         return None
-    return float(min(s["energy_ev"] for s in io.read_json(site_json)["states"]))
+    return float(min(s["energy_ev"] for s in site["states"]))
 
 
-def _dimer_ct(dimer_files, variant, donor, acceptor) -> dict:
-    """The lowest state of a configured dimer of donor and acceptor whose transition density is
-    mostly donor → acceptor charge transfer (Ω share > 0.5), or {}."""
-    for p in dimer_files:
-        d = io.read_json(p)
+def _dimer_ct(dimers, variant, donor, acceptor) -> dict:
+    """The lowest state of a configured dimer (results read) of donor and acceptor whose
+    transition density is mostly donor → acceptor charge transfer (Ω share > 0.5), or {}."""
+    for d in dimers:
         if d.get("variant") != variant or set(d.get("pigments", ())) != {donor, acceptor}:
             continue
         key = "ct_a_to_b" if d["pigments"][0] == donor else "ct_b_to_a"
@@ -255,7 +254,8 @@ def pair_rows(ion_files, site_files=(), dimer_files=(), cfg=None, branch_pairs=(
         d = io.read_json(p)
         key = (d.get("variant"), d["pigment_id"])
         if d.get("mode") == "embedded" or key not in sites:
-            sites[key] = p
+            sites[key] = d
+    dimers = [io.read_json(p) for p in dimer_files]
     rows = []
     for variant, ions in sorted(by_variant.items(), key=lambda kv: str(kv[0])):
         for name, donor, acceptor, source in pair_list(cfg, ions, branch_pairs):
@@ -266,7 +266,7 @@ def pair_rows(ion_files, site_files=(), dimer_files=(), cfg=None, branch_pairs=(
             rows.append({"variant": variant, "pair": name, "donor": donor,
                          "acceptor": acceptor, "source": source, "mode": D["mode"],
                          "coulomb_eps_choice": str(cfg["coulomb_eps"]), **r,
-                         **_dimer_ct(dimer_files, variant, donor, acceptor)})
+                         **_dimer_ct(dimers, variant, donor, acceptor)})
     return rows
 
 
