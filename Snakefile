@@ -4,7 +4,11 @@ from snakemake.utils import min_version, validate
 min_version("8.0")
 
 
-configfile: "config/config.yaml"
+# The demo study's config, unless the user names their own with --configfile: Snakemake would
+# otherwise merge the two and schedule the demo's variants inside the user's study.
+if not workflow.overwrite_configfiles:
+
+    configfile: "config/config.yaml"
 
 
 validate(config, "config/schemas/config.schema.yaml")

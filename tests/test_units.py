@@ -45,6 +45,24 @@ def test_atomic_write_leaves_no_partial_file(tmp_path):
     assert p.read_text() == "ok"
 
 
+def test_atomic_writes_keep_the_users_umask(tmp_path):
+    # a file written atomically gets the mode open() would give it (POSIX: 0666 & ~umask),
+    # not mkstemp's private 0600
+    import os
+    from siteshift.study.stages import _save_arrays
+    old = os.umask(0o022)
+    try:
+        write_json(tmp_path / "t.json", {"a": 1})
+        _save_arrays(tmp_path / "r.npz", x=np.zeros(2))
+        modes = {f.name: f.stat().st_mode & 0o777 for f in tmp_path.iterdir()}
+        os.umask(0o077)
+        write_json(tmp_path / "p.json", {"a": 1})
+    finally:
+        os.umask(old)
+    assert modes == {"t.json": 0o644, "r.npz": 0o644}
+    assert (tmp_path / "p.json").stat().st_mode & 0o777 == 0o600
+
+
 def test_stable_hash_ignores_float_noise_but_not_changes():
     a = {"x": [1.0000000001, 2.0], "s": {"eps": 4.0}}
     b = {"s": {"eps": 4.0}, "x": [1.0, 2.0]}

@@ -55,6 +55,22 @@ def test_dry_run_and_lint(root, tmp_path):
     assert "error" not in (p.stdout + p.stderr).lower() or p.returncode == 0, p.stdout[-3000:]
 
 
+def test_users_configfile_replaces_the_demo_config(root, tmp_path):
+    # Snakemake merges --configfile into a Snakefile's `configfile:`; a user's study must not
+    # inherit the demo's variants (the workflow loads the demo config only without --configfile)
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(_tiny_config(root)))
+    mine = _tiny_config(root)
+    mine["variants"] = {"mine": {"structure": str(root / "config/demo/pcd2_wt.pdb")}}
+    mine["reference"] = "mine"
+    (tmp_path / "my.yaml").write_text(yaml.safe_dump(mine))
+    p = _snakemake(root, tmp_path, "inventories", "-n", "--forceall", "--configfile",
+                   str(tmp_path / "my.yaml"))
+    assert p.returncode == 0, p.stderr[-3000:]
+    assert "results/mine/inventory.tsv" in p.stdout
+    assert "results/wt/" not in p.stdout and "A_I6E" not in p.stdout
+
+
 def test_bad_config_stops_before_jobs(root, tmp_path):
     cfg = _tiny_config(root)
     cfg["dielectric"]["mode"] = "sometimes"

@@ -1,6 +1,7 @@
 """Atomic file writing, hashing and small table helpers."""
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
@@ -24,20 +25,38 @@ def _default(o):
     raise TypeError(f"cannot serialise {type(o)}")
 
 
-def atomic_write_text(path, text: str) -> Path:
-    """Write via a temporary file in the same folder and rename: readers never see half a file."""
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+@contextlib.contextmanager
+def atomic_target(path, suffix=".part"):
+    """Yield a temporary path beside `path`; on success it replaces `path`, else it is removed.
+
+    The temporary file from mkstemp is private (0600); before the rename it gets the mode a plain
+    open() would have given (0666 less the user's umask), so collaborators on a shared cluster
+    read results as they read any other file the user writes.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=suffix)
+    os.close(fd)
     try:
-        with os.fdopen(fd, "w") as fh:
-            fh.write(text)
+        yield tmp
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
-    except BaseException:
+    finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
-        raise
-    return path
+
+
+def atomic_write_text(path, text: str) -> Path:
+    """Write via a temporary file in the same folder and rename: readers never see half a file."""
+    with atomic_target(path) as tmp:
+        Path(tmp).write_text(text)
+    return Path(path)
 
 
 def write_json(path, obj) -> Path:

@@ -2,8 +2,6 @@
 from __future__ import annotations
 
 import logging
-import os
-import tempfile
 import time
 from dataclasses import asdict
 from pathlib import Path
@@ -89,16 +87,8 @@ def model_record(model: QMModel, ptype, structure) -> dict:
 
 
 def _write_atoms(ag, path):
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.stem}.", suffix=path.suffix)
-    os.close(fd)
-    try:
+    with io.atomic_target(path, suffix=Path(path).suffix) as tmp:
         ag.write(tmp)
-        os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
 
 
 def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, library=None,
@@ -253,15 +243,8 @@ def qm_key(rec: dict, settings: ExciteSettings, charges=None) -> dict:
 
 def _save_arrays(path, **arrays):
     """np.savez written atomically (a killed job leaves no half file)."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".npz")
-    os.close(fd)
-    try:
+    with io.atomic_target(path, suffix=".npz") as tmp:
         np.savez(tmp, **arrays)
-        os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
 
 
 def response_path(cached_json):
