@@ -235,8 +235,13 @@ def test_scf_fallback_ladder_records_the_step():
     # DIIS given too few cycles fails; the ladder moves on and records which step converged.
     s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
     mol = build_molecule(*WATER, basis="sto-3g")
-    mf, step, _ = run_scf(make_scf(mol, s), max_cycle=4)
+    lines = []
+    mf, step, n = run_scf(make_scf(mol, s), max_cycle=4, log=lines.append)
     assert mf.converged and step != "diis"
+    # every cycle reaches the log (progress of long jobs), then each step's outcome
+    per_cycle = [m for m in lines if f"SCF step '{step}' cycle" in m]
+    assert len(per_cycle) == n and "|g|=" in per_cycle[-1]
+    assert lines[-1].startswith(f"SCF step '{step}': converged=True")
     with pytest.raises(EngineError, match="fallback ladder"):
         run_scf(make_scf(mol, s), max_cycle=1)
 

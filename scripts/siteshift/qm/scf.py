@@ -6,6 +6,8 @@ float32 early cycles.
 """
 from __future__ import annotations
 
+import time
+
 import numpy as np
 from pyscf import dft, gto, lib
 
@@ -143,6 +145,26 @@ def _stall_watch(history):
     return callback
 
 
+def _with_progress(callback, log, step, cycles):
+    """Wrap an SCF callback so each cycle's energy, |g| and time reach the log (a large
+    pigment's cycle takes minutes: the log must show the job is moving)."""
+    if log is None:
+        return callback
+    t = [time.perf_counter()]
+
+    def wrapped(env):
+        try:
+            callback(env)
+        finally:
+            now = time.perf_counter()
+            g = env.get("norm_gorb")
+            log(f"SCF step '{step}' cycle {len(cycles)}: E={env.get('e_tot', float('nan')):.10f}"
+                f" Eh, |g|={float(g) if g is not None else float('nan'):.2e}, "
+                f"{now - t[0]:.1f} s")
+            t[0] = now
+    return wrapped
+
+
 #: Orbital-gradient norm below which the SCF's exchange goes back to float64 (see
 #: :class:`_EarlyCycles`). Measured on 4'-hydroxycinnamic acid/def2-SVP, grid 1, fitted PCM:
 #: 1e-3 and 1e-4 both take 12 cycles (8 and 10 of them in float32), same energy to 1e-10 Eh,
@@ -251,8 +273,9 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         solver.max_cycle = max_cycle
         cycles = []
         last = attrs is None or name == SCF_LADDER[-1][0]
-        solver.callback = ((lambda env: cycles.append(env.get("norm_gorb"))) if last
-                           else _stall_watch(cycles))
+        watch = ((lambda env: cycles.append(env.get("norm_gorb"))) if last
+                 else _stall_watch(cycles))
+        solver.callback = _with_progress(watch, log, name, cycles)
         early = _EarlyCycles(solver) if mixed_precision and attrs is not None else None
         stalled = None
         try:
