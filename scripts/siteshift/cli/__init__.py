@@ -3,9 +3,9 @@
     siteshift inventory STRUCTURE [--json FILE] [--tsv FILE]
     siteshift extract STRUCTURE PIGMENT_ID --outdir DIR
     siteshift environment STRUCTURE [--pigment ID] [--json FILE]
-    siteshift excite XYZ --charge Q --spin S (--gas | --eps-static E --eps-optical N) ...
+    siteshift excite XYZ --charge Q --multiplicity M (--gas | --eps-static E --eps-optical N) ...
     siteshift excite ... --point-charges FILE [--charge-scale S]   (embedded in charges)
-    siteshift tune XYZ --charge Q --spin S ...
+    siteshift tune XYZ --charge Q --multiplicity M ...
     siteshift electrostatics STRUCTURE [--pigment ID] [--preset demo|full] --json FILE
     siteshift couple MODEL_A.json MODEL_B.json [--dimer] --json FILE
     siteshift ions MODEL.json [--eps-static E] [--unscreened] --json FILE
@@ -21,32 +21,13 @@ from pathlib import Path
 
 import numpy as np
 
+from .inputs import InputError, check_xyz_job, read_xyz  # noqa: F401 (read_xyz: API)
 from .pairs import add_pair_commands
 
 
 def _library(args):
     from ..structures.library import load_library
     return load_library(args.library)
-
-
-def read_xyz(path):
-    """Elements and Å coordinates of an XYZ file (extra columns after x y z are ignored)."""
-    lines = Path(path).read_text().splitlines()
-    try:
-        n = int(lines[0].split()[0])
-    except (IndexError, ValueError):
-        raise SystemExit(f"error: {path} is not an XYZ file (first line must be the atom count)")
-    el, xyz = [], []
-    for k, line in enumerate(lines[2:2 + n], start=3):
-        parts = line.split()
-        try:
-            el.append(parts[0])
-            xyz.append([float(v) for v in parts[1:4]])
-        except (IndexError, ValueError):
-            raise SystemExit(f"error: {path} line {k}: expected 'element x y z', got {line!r}")
-    if len(el) != n:
-        raise SystemExit(f"error: {path} declares {n} atoms but holds {len(el)}")
-    return el, np.array(xyz)
 
 
 def cmd_inventory(args):
@@ -96,7 +77,7 @@ def cmd_environment(args):
     if args.pigment:
         pigs = [p for p in pigs if p.id == args.pigment]
         if not pigs:
-            raise SystemExit(f"error: pigment {args.pigment} not found in {args.structure}")
+            raise InputError(f"pigment {args.pigment} not found in {args.structure}")
     model = DielectricModel(mode=args.mode, exposed_medium=args.exposed_medium)
     out = []
     for r in pigs:
@@ -119,14 +100,14 @@ def _settings(args):
     from ..study.config import qm_settings
     es, eo = (1.0, 1.0) if args.gas else (args.eps_static, args.eps_optical)
     if es is None or eo is None:
-        raise SystemExit("error: give --gas or both --eps-static and --eps-optical")
+        raise InputError("give --gas or both --eps-static and --eps-optical")
     qm = {"preset": args.preset, "alpha": args.alpha, "basis": args.basis,
-          "grid_level": args.grid_level, "pcm_method": args.pcm,
-          "lebedev_order": args.lebedev_order, "density_fitting": not args.no_df,
-          "max_memory_mb": args.max_memory, "screen": args.screen}
-    if hasattr(args, "solver"):  # response options (excite only)
+          "grid_level": args.grid_level, "density_fitting": not args.no_df,
+          "max_memory_mb": args.max_memory}
+    if hasattr(args, "solver"):  # continuum and response options (excite only)
         qm.update(nstates=args.states, tda=not args.tddft, solver=args.solver,
-                  equilibrium=args.equilibrium)
+                  equilibrium=args.equilibrium, pcm_method=args.pcm,
+                  lebedev_order=args.lebedev_order, screen=args.screen)
     return qm_settings(qm, es, eo, omega=args.omega)
 
 
@@ -136,18 +117,19 @@ def cmd_excite(args):
     from ..base.io import write_json
     el, xyz = read_xyz(args.xyz)
     s = _settings(args)
+    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity, s.basis)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
     tuned = None
     if args.tune:
-        tuned = tune_omega(el, xyz, args.charge, args.spin, s, log=log)
+        tuned = tune_omega(el, xyz, args.charge, args.multiplicity - 1, s, log=log)
         s.omega = tuned["omega_bohr_inv"]
     elif args.omega is None:
-        raise SystemExit("error: give --omega W (bohr^-1) or --tune")
+        raise InputError("give --omega W (bohr^-1) or --tune")
     charges = None
     if args.point_charges:
         from ..qm.embedding import read_point_charges
         charges = read_point_charges(args.point_charges, scale=args.charge_scale)
-    res = excite(el, xyz, args.charge, args.spin, s, log=log, charges=charges)
+    res = excite(el, xyz, args.charge, args.multiplicity - 1, s, log=log, charges=charges)
     if tuned:
         res["tuning"] = tuned
     for st in res["states"]:
@@ -203,9 +185,10 @@ def cmd_tune(args):
     el, xyz = read_xyz(args.xyz)
     args.gas, args.omega = True, None
     s = _settings(args)
+    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity, s.basis)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
     xatol = args.xatol if args.xatol is not None else preset(args.preset)["tune_xatol"]
-    res = tune_omega(el, xyz, args.charge, args.spin, s, bounds=tuple(args.bounds),
+    res = tune_omega(el, xyz, args.charge, args.multiplicity - 1, s, bounds=tuple(args.bounds),
                      xatol=xatol, include_anion=args.anion, log=log)
     for r in res["evaluations"]:
         print(f"omega={r['omega_bohr_inv']:.4f}  J^2={r['j2_ev2']:.6f} eV^2  IP={r['ip_ev']:.4f}"
@@ -223,8 +206,9 @@ def _qm_args(p, excite=True):
     qm = default("qm")
     p.add_argument("xyz", help="XYZ file (Å)")
     p.add_argument("--charge", type=int, default=0, help="total charge (e); default 0")
-    p.add_argument("--spin", type=int, default=0,
-                   help="2S, the number of unpaired electrons (multiplicity − 1); default 0")
+    p.add_argument("--multiplicity", type=int, default=1, metavar="M",
+                   help="spin multiplicity 2S+1, as the pigment library's `multiplicity` "
+                        "(default 1, a singlet)")
     p.add_argument("--preset", choices=sorted(QM_PRESETS), default=qm["preset"],
                    help="basis, grids, state count and ω tolerance unless set below: " + "; ".join(
                        f"{k}: {v['basis']}, grid {v['grid_level']}, Lebedev "
@@ -234,17 +218,17 @@ def _qm_args(p, excite=True):
                    help=f"short-range exact-exchange fraction α (default {qm['alpha']})")
     p.add_argument("--basis", help="basis set (default: the preset's)")
     p.add_argument("--grid-level", type=int, help="PySCF DFT grid level 0-9 (default: preset)")
-    p.add_argument("--lebedev-order", type=int,
-                   help="Lebedev order of the PCM atom spheres (default: preset)")
-    p.add_argument("--screen", choices=["static", "optical"], default=qm["screen"],
-                   help=f"which ε sets the long-range exchange 1/ε (default {qm['screen']})")
-    p.add_argument("--pcm", choices=["IEF-PCM", "C-PCM"], default=qm["pcm_method"],
-                   help=f"continuum model (default {qm['pcm_method']})")
     p.add_argument("--no-df", action="store_true", help="no density fitting")
     p.add_argument("--max-memory", type=int, default=qm["max_memory_mb"],
                    help=f"PySCF memory budget in MB (default {qm['max_memory_mb']})")
     p.add_argument("--json", help="write the result as JSON to this file")
-    if excite:
+    if excite:   # continuum and response options (tuning runs in the gas phase)
+        p.add_argument("--lebedev-order", type=int,
+                       help="Lebedev order of the PCM atom spheres (default: preset)")
+        p.add_argument("--screen", choices=["static", "optical"], default=qm["screen"],
+                       help=f"which ε sets the long-range exchange 1/ε (default {qm['screen']})")
+        p.add_argument("--pcm", choices=["IEF-PCM", "C-PCM"], default=qm["pcm_method"],
+                       help=f"continuum model (default {qm['pcm_method']})")
         p.add_argument("--states", type=int,
                        help="excited states (default: the preset's, else 4)")
         p.add_argument("--solver", choices=["fast", "stock"], default=qm["solver"],
@@ -386,7 +370,7 @@ def main(argv=None):
     try:
         return args.func(args)
     except (StructureError, ModelError, EngineError, LibraryError, DielectricError,
-            ChargeError) as exc:
+            ChargeError, InputError) as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
 

@@ -34,6 +34,41 @@ def _suffix(path: Path) -> str:
     return ""
 
 
+def _check_records(path: Path, fmt: str):
+    """An empty file, or one without atom records, is named as such (the parsers' own messages
+    say 'Compressed file ended…' or 'index 0 is out of bounds')."""
+    import gzip
+    opener = gzip.open if path.suffix.lower() == ".gz" else open
+    try:
+        with opener(path, "rt", errors="replace") as fh:
+            text = fh.read()
+    except (OSError, EOFError) as exc:
+        raise StructureError(f"{path}: cannot be read ({exc}); is it a complete (gzipped) "
+                             "file?") from None
+    if not text.strip():
+        raise StructureError(f"{path}: the file is empty; give a PDB or mmCIF structure")
+    if fmt == "PDB":
+        if not any(line.startswith(("ATOM", "HETATM")) for line in text.splitlines()):
+            raise StructureError(f"{path}: no ATOM or HETATM records; is it a PDB file? (an "
+                                 "mmCIF file must end in .cif)")
+    elif "_atom_site." not in text:
+        raise StructureError(f"{path}: no _atom_site loop; is it an mmCIF file? (a PDB file "
+                             "must end in .pdb)")
+
+
+def _check_positions(path: Path, atoms):
+    """Non-finite coordinates and the 9999.999 placeholders of unplaced atoms are refused,
+    naming the atom: either would send a fragment to the QM thousands of Å away."""
+    pos = atoms.positions
+    bad = np.where(~np.isfinite(pos).all(axis=1) | (np.abs(pos) >= 9999.0).any(axis=1))[0]
+    if len(bad):
+        a = atoms[int(bad[0])]
+        chain = getattr(a, "chainID", "") or a.segid
+        raise StructureError(f"{path}: atom {a.name} of {a.resname} {chain}{a.resid} has "
+                             f"coordinates {np.round(pos[bad[0]], 3).tolist()} (not a position); "
+                             f"{len(bad)} such atom(s): fix or remove them")
+
+
 def read_structure(path, altloc: str = "occupancy", model: int = 0):
     """Read a structure with MDAnalysis and return an AtomGroup with one altloc per residue.
 
@@ -52,6 +87,7 @@ def read_structure(path, altloc: str = "occupancy", model: int = 0):
         raise StructureError(f"{path}: unknown structure format; use .pdb, .ent, .cif or .mmcif "
                              "(optionally .gz)")
     fmt = "PDB" if ext in (".pdb", ".ent") else "MMCIF"
+    _check_records(path, fmt)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         try:
@@ -63,6 +99,7 @@ def read_structure(path, altloc: str = "occupancy", model: int = 0):
     if model:
         u.trajectory[model]
     atoms = u.atoms
+    _check_positions(path, atoms)
     if not hasattr(atoms, "altLocs"):
         return atoms
     keep = select_altlocs(atoms, altloc)
