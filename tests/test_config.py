@@ -61,3 +61,26 @@ def test_cross_field_errors_name_the_key(cfg, root):
     c["qm"]["tune"]["bounds"] = [0.5, 0.1]
     with pytest.raises(ConfigError, match=r"qm\.tune\.bounds"):
         check_config(c, root)
+
+
+def test_static_eps_below_optical_is_refused(cfg, root):
+    # ε_static ≥ ε_optical = n² for any medium (the optical response is part of the static one;
+    # common practice, e.g. Tomasi, Mennucci, Cammi, Chem. Rev. 105, 2999 (2005)): the config is
+    # refused rather than silently capped
+    c = copy.deepcopy(cfg)
+    c["dielectric"].update(mode="uniform", eps_uniform=1.5, eps_optical=2.0)
+    with pytest.raises(ConfigError, match=r"'dielectric\.eps_uniform': 1\.5 is below"):
+        check_config(c, root)
+    c = copy.deepcopy(cfg)
+    c["dielectric"].update(eps_min=1.8, eps_optical=2.0)
+    with pytest.raises(ConfigError, match=r"'dielectric\.eps_min'"):
+        check_config(c, root)
+
+
+def test_override_eps_optical_above_the_site_names_the_key():
+    from siteshift.environment.dielectric import DielectricError, DielectricModel
+    model = DielectricModel(mode="uniform", eps_uniform=3.0,
+                            overrides={"A_HC4101": {"eps_optical": 3.5}})
+    with pytest.raises(DielectricError, match=r"dielectric\.overrides\.A_HC4101\.eps_optical"):
+        model.assign("A_HC4101", {})
+

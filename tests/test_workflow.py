@@ -71,6 +71,21 @@ def test_users_configfile_replaces_the_demo_config(root, tmp_path):
     assert "results/wt/" not in p.stdout and "A_I6E" not in p.stdout
 
 
+def test_job_error_is_one_line_naming_the_key(root, tmp_path):
+    # an override's eps_optical above the site's computed eps_static can only be found in the
+    # job: its log ends with the message naming the config key, not a traceback
+    cfg = _tiny_config(root)
+    cfg["dielectric"]["overrides"] = {"A_HC4101": {"eps_optical": 50.0}}
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path, "results/wt/pigments/A_HC4101/environment.json")
+    assert p.returncode != 0
+    log = (tmp_path / "logs/measure_environment/wt/A_HC4101.log").read_text()
+    assert "ERROR config key 'dielectric.overrides.A_HC4101.eps_optical': 50 is above" in log
+    assert "Traceback" not in log and "Traceback" not in p.stderr
+    assert not (tmp_path / "results/wt/pigments/A_HC4101/environment.json").exists()
+
+
 def test_bad_config_stops_before_jobs(root, tmp_path):
     cfg = _tiny_config(root)
     cfg["dielectric"]["mode"] = "sometimes"

@@ -94,6 +94,9 @@ class DielectricModel:
             eps_o = float(ov.get("eps_optical", min(eps_o, eps_s)))
             source = "override"
         if eps_o > eps_s:
-            raise DielectricError(f"{pigment_id}: eps_optical {eps_o} > eps_static {eps_s}")
+            raise DielectricError(
+                f"config key 'dielectric.overrides.{pigment_id}.eps_optical': {eps_o:g} is above "
+                f"the site's eps_static {eps_s:g} ({self.mode} mode); lower it, or give "
+                "eps_static beside it")
         row.update(eps_static=round(eps_s, 4), eps_optical=round(eps_o, 4), source=source)
         return row

@@ -34,6 +34,15 @@ def check_config(config: dict, root=".") -> dict:
     d = config.get("dielectric") or {}
     if d.get("eps_min", 2.0) > d.get("eps_max", 20.0):
         raise ConfigError("config keys 'dielectric.eps_min' > 'dielectric.eps_max'")
+    n2 = d.get("eps_optical", 2.0)
+    if d.get("mode", "local") == "uniform" and d.get("eps_uniform", 4.0) < n2:
+        raise ConfigError(f"config key 'dielectric.eps_uniform': {d.get('eps_uniform')} is below "
+                          f"'dielectric.eps_optical' {n2} (a static ε is never below the optical "
+                          "one); raise it, or lower eps_optical")
+    if d.get("eps_min", 2.0) < n2:
+        raise ConfigError(f"config key 'dielectric.eps_min': {d.get('eps_min')} is below "
+                          f"'dielectric.eps_optical' {n2}, so apolar sites would have a static ε "
+                          "below the optical one; raise eps_min, or lower eps_optical")
     for pid, ov in (d.get("overrides") or {}).items():
         if "eps_static" in ov and "eps_optical" in ov and ov["eps_optical"] > ov["eps_static"]:
             raise ConfigError(f"config key 'dielectric.overrides.{pid}': eps_optical "

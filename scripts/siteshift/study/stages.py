@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import logging
+import sys
 import time
 from dataclasses import asdict
 from pathlib import Path
@@ -42,6 +43,18 @@ def setup_logging(path=None, level=logging.INFO):
         h.setFormatter(fmt)
         root.addHandler(h)
     logging.getLogger("MDAnalysis").setLevel(logging.WARNING)
+    if path:   # a workflow job: its own errors end it with one line, not a traceback
+        sys.excepthook = _one_line_errors
+
+
+def _one_line_errors(exc_type, exc, tb):
+    """Exceptions siteshift raises on purpose (bad input, a configuration the job cannot use)
+    carry a message naming the file, residue or key and the fix: log that line alone. Any other
+    exception is a bug and keeps its traceback."""
+    if exc_type.__module__.startswith("siteshift."):
+        log.error("%s", exc)
+    else:
+        sys.__excepthook__(exc_type, exc, tb)
 
 
 def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALTLOC,
