@@ -4,6 +4,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(workflow.basedir) / "scripts"))
 
+from snakemake.logging import logger  # noqa: E402
+
 from siteshift.study.config import check_config  # noqa: E402
 
 check_config(config, Path.cwd())
@@ -16,6 +18,18 @@ BENCH = f"{RESULTS}/benchmarks"
 VARIANTS = sorted(config["variants"])
 REFERENCE = config["reference"]
 QM = config["qm"]
+# qm keys that change how a job runs, not its numbers: kept out of the rules' params (a changed
+# param reruns the job) and read by the job scripts from the config (siteshift.study.stages.job_qm)
+QM_RUN_ONLY = ("threads", "max_memory_mb")
+QM_PARAMS = {k: v for k, v in QM.items() if k not in QM_RUN_ONLY}
+# ω tuning is a gas-phase ground-state job: continuum and response keys do not reach it
+QM_TUNING_PARAMS = {
+    k: v
+    for k, v in QM_PARAMS.items()
+    if k not in ("equilibrium", "gas_phase", "lebedev_order", "nstates", "occ_window_ev",
+                 "vir_window_ev", "pcm_fit", "pcm_method", "response_grid_level",
+                 "response_tol", "screen", "solver", "tda")
+}
 SWEEP = config["sweep"]
 ELECTRO = config["electrostatics"]
 COUPLINGS = config["couplings"]
@@ -43,10 +57,33 @@ def parent_structure(wildcards):
     return config["variants"][v["parent"]]["structure"]
 
 
+_STUDY_CHECKED = []
+
+
+def check_inventories():
+    """Once every variant's inventory exists, before any QM: the pigments the config names
+    exist and every variant has one to compute (else stop, naming the key or the variant);
+    named pigments that failed are warned about here and listed in the study summary."""
+    if _STUDY_CHECKED:
+        return
+    import pandas as pd
+    from siteshift.study.config import check_study_pigments
+
+    tables = {
+        v: pd.read_csv(checkpoints.take_inventory.get(variant=v).output.tsv, sep="\t",
+                       keep_default_na=False)
+        for v in VARIANTS
+    }
+    for w in check_study_pigments(config, tables):
+        logger.warning(f"WARNING: {w}")
+    _STUDY_CHECKED.append(True)
+
+
 def inventory_rows(variant):
     """Pigment rows (status ok, codes selected) of a variant, read after the checkpoint."""
     import pandas as pd
 
+    check_inventories()
     path = checkpoints.take_inventory.get(variant=variant).output.tsv
     df = pd.read_csv(path, sep="\t", keep_default_na=False)
     df = df[df.status == "ok"]

@@ -61,7 +61,7 @@ rule excite_dimer:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         couplings=COUPLINGS,
         cache=f"{RESULTS}/qm_cache",
     conda:

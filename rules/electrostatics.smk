@@ -17,7 +17,7 @@ rule fit_pigment_charges:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
     conda:
         "../config/envs/siteshift.yaml"
     script:
@@ -66,7 +66,7 @@ rule excite_embedded:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         electrostatics=ELECTRO,
         cache=f"{RESULTS}/qm_cache",
     conda:

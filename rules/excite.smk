@@ -12,7 +12,7 @@ rule tune_omega:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_TUNING_PARAMS,
     conda:
         "../config/envs/siteshift.yaml"
     script:
@@ -35,7 +35,7 @@ rule excite_pigment:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         cache=f"{RESULTS}/qm_cache",
         # the electrostatics stage decomposes shifts with the relaxed difference densities
         relaxed=ELECTRO["enabled"],

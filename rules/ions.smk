@@ -19,7 +19,7 @@ rule ionize_pigment:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         electrostatics=ELECTRO,
         cache=f"{RESULTS}/qm_cache",
     conda:
@@ -44,7 +44,7 @@ rule check_gaps:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         eps=IONS["gap_check"]["eps_static"],
         cache=f"{RESULTS}/qm_cache",
     conda:

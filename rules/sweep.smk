@@ -16,7 +16,7 @@ rule sweep_epsilon:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         grid=SWEEP["eps_static"],
         n2=SWEEP["n2"],
         measure_cold_start=SWEEP["measure_cold_start"],
@@ -43,7 +43,7 @@ rule sweep_dimer:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         grid=SWEEP["eps_static"],
         n2=SWEEP["n2"],
         couplings=COUPLINGS,
@@ -69,7 +69,7 @@ rule sweep_ions:
         mem_mb=qm_mem_mb,
         runtime=qm_runtime,
     params:
-        qm=QM,
+        qm=QM_PARAMS,
         grid=SWEEP["eps_static"],
         n2=SWEEP["n2"],
         cache=f"{RESULTS}/qm_cache",

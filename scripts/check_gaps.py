@@ -4,11 +4,11 @@ import sys
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.qm.settings import configure_threads
 from siteshift.study.ions import gap_stage
-from siteshift.study.stages import setup_logging
+from siteshift.study.stages import job_qm, setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])
 configure_threads(sm.threads)
-gap_stage(sm.input.model, sm.input.environment, sm.output.json, sm.params.qm,
+gap_stage(sm.input.model, sm.input.environment, sm.output.json, job_qm(sm),
           eps_points=sm.params.eps, tuning_json=sm.input.tuning or None,
           cache_dir=sm.params.cache)

@@ -5,7 +5,7 @@ import jsonschema
 import pytest
 import yaml
 
-from siteshift.study.config import ConfigError, check_config
+from siteshift.study.config import ConfigError, check_config, check_study_pigments
 
 
 @pytest.fixture(scope="module")
@@ -83,4 +83,30 @@ def test_override_eps_optical_above_the_site_names_the_key():
                             overrides={"A_HC4101": {"eps_optical": 3.5}})
     with pytest.raises(DielectricError, match=r"dielectric\.overrides\.A_HC4101\.eps_optical"):
         model.assign("A_HC4101", {})
+
+
+def _inventory(*rows):
+    import pandas as pd
+    cols = ["pigment_id", "ccd_code", "status", "problems"]
+    return pd.DataFrame([dict(zip(cols, r)) for r in rows], columns=cols)
+
+
+def test_named_pigments_must_exist_and_variants_need_a_pigment(cfg):
+    ok = _inventory(("A_HC4101", "HC4", "ok", ""), ("B_HC4101", "HC4", "ok", ""))
+    assert check_study_pigments(cfg, {"wt": ok, "A_I6E": ok}) == []
+    c = copy.deepcopy(cfg)
+    c["ions"]["pairs"].append(["x", "A_HC4101", "C_HC4101"])
+    with pytest.raises(ConfigError, match=r"'ions\.pairs\[2\]': pigment 'C_HC4101' is in no"):
+        check_study_pigments(c, {"wt": ok, "A_I6E": ok})
+    # a pigment that failed in one variant: a warning naming the key, the variant and why
+    failed = _inventory(("A_HC4101", "HC4", "ok", ""),
+                        ("B_HC4101", "HC4", "error", "core atom(s) C9 missing"))
+    w = check_study_pigments(cfg, {"wt": ok, "A_I6E": failed})
+    assert any("branches.pairs[0]" in x and "variant A_I6E" in x and "C9 missing" in x for x in w)
+    # a structure with nothing to compute stops the study, naming the variant and why
+    with pytest.raises(ConfigError, match=r"variant 'A_I6E'.*no pigment to compute.*C9 missing"):
+        check_study_pigments(cfg, {"wt": ok, "A_I6E": _inventory(
+            ("B_HC4101", "HC4", "error", "core atom(s) C9 missing"))})
+    with pytest.raises(ConfigError, match="no library pigment found"):
+        check_study_pigments(cfg, {"wt": ok, "A_I6E": _inventory()})
 

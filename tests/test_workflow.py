@@ -86,6 +86,17 @@ def test_job_error_is_one_line_naming_the_key(root, tmp_path):
     assert not (tmp_path / "results/wt/pigments/A_HC4101/environment.json").exists()
 
 
+def test_unknown_pigment_in_config_stops_before_qm(root, tmp_path):
+    cfg = _tiny_config(root)
+    cfg["branches"]["pairs"].append(["ghost", "A_HC4101", "C_HC4101"])
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path)
+    assert p.returncode != 0
+    assert "config key 'branches.pairs[1]': pigment 'C_HC4101' is in no" in p.stdout + p.stderr
+    assert not (tmp_path / "logs/excite_pigment").exists()
+
+
 def test_bad_config_stops_before_jobs(root, tmp_path):
     cfg = _tiny_config(root)
     cfg["dielectric"]["mode"] = "sometimes"
@@ -298,6 +309,10 @@ def study_copy(study, tmp_path):
 def test_qm_parameter_change_reruns_only_qm_and_after(root, study_copy):
     cfg = yaml.safe_load((study_copy / "config/config.yaml").read_text())
     assert _planned(_snakemake(root, study_copy, "-n")) == {}
+    # run-only keys (how a job runs, not its numbers) rerun nothing
+    cfg["qm"].update(threads=2, max_memory_mb=3000)
+    (study_copy / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    assert _planned(_snakemake(root, study_copy, "-n")) == {}
     cfg["qm"]["alpha"] = 0.25
     (study_copy / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     jobs = _planned(_snakemake(root, study_copy, "-n"))
@@ -306,6 +321,23 @@ def test_qm_parameter_change_reruns_only_qm_and_after(root, study_copy):
     for upstream in ("take_inventory", "extract_pigment", "measure_environment",
                      "tabulate_environment"):
         assert upstream not in jobs, jobs
+
+
+def test_tuning_is_not_redone_for_continuum_or_run_only_keys(root, tmp_path):
+    # ω tuning is a gas-phase ground-state job: PCM method, threads and memory leave it alone
+    cfg = _tiny_config(root, omega=None, grid_level=0)
+    cfg["qm"]["tune"].update(xatol=0.05, bounds=[0.24, 0.26])   # two or three evaluations
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path, "results/tuning/HC4.json")
+    assert p.returncode == 0, p.stderr[-3000:]
+    cfg["qm"].update(pcm_method="C-PCM", threads=2, max_memory_mb=3000, tda=False)
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    assert _planned(_snakemake(root, tmp_path, "-n", "results/tuning/HC4.json")) == {}
+    cfg["qm"]["alpha"] = 0.3   # changes the functional: tuned again
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    assert _planned(_snakemake(root, tmp_path, "-n", "results/tuning/HC4.json")) == {
+        "tune_omega": 1}
 
 
 def test_added_mutant_reuses_unchanged_qm(root, study_copy):

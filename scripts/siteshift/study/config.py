@@ -172,3 +172,71 @@ def dielectric_model(d: dict | None) -> DielectricModel:
                                       **(d.get("coefficients") or {})})
     m.check()
     return m
+
+
+def named_pigments(config: dict) -> list[tuple[str, str]]:
+    """(config key, pigment id) of every pigment the config names."""
+    out = []
+
+    def triples(key, rows, cols):
+        for k, row in enumerate(rows or []):
+            for c in cols:
+                if len(row) > c:
+                    out.append((f"{key}[{k}]", str(row[c])))
+    triples("branches.pairs", (config.get("branches") or {}).get("pairs"), (1, 2))
+    cpl = config.get("couplings") or {}
+    triples("couplings.dimers", cpl.get("dimers"), (1, 2))
+    for g, ids in (cpl.get("groups") or {}).items():
+        out += [(f"couplings.groups.{g}", str(i)) for i in ids or []]
+    triples("ions.pairs", (config.get("ions") or {}).get("pairs"), (1, 2))
+    out += [("sweep.pigments", str(i)) for i in (config.get("sweep") or {}).get("pigments") or []]
+    for k, t in enumerate((config.get("sweep") or {}).get("targets") or []):
+        if t.get("pigment"):
+            out.append((f"sweep.targets[{k}].pigment", str(t["pigment"])))
+    scan = ((config.get("electrostatics") or {}).get("scan") or {})
+    out += [("electrostatics.scan.pigments", str(i)) for i in scan.get("pigments") or []]
+    out += [(f"dielectric.overrides.{i}", str(i))
+            for i in ((config.get("dielectric") or {}).get("overrides") or {})]
+    out += [(f"pigment_overrides.{i}", str(i)) for i in config.get("pigment_overrides") or {}]
+    return out
+
+
+def check_study_pigments(config: dict, inventories: dict) -> list[str]:
+    """After the inventories, before any QM: every pigment the config names exists in some
+    variant, and every variant has a pigment to compute. Raise ConfigError naming the key (or
+    the variant and its structure); return warnings for named pigments that failed (listed with
+    their reason in every variant's inventory and the study summary).
+
+    inventories: variant -> inventory table (pandas DataFrame, all rows, any status)."""
+    codes = set(config.get("pigment_codes") or [])
+    found, usable = {}, {}
+    for v, df in inventories.items():
+        rows = df.to_dict("records")
+        for r in rows:
+            found.setdefault(r["pigment_id"], {})[v] = r
+        ok = [r for r in rows if r["status"] == "ok" and (not codes or r["ccd_code"] in codes)]
+        usable[v] = ok
+        if not ok:
+            struct = (config["variants"][v].get("structure") or "its in-silico mutant")
+            pig = [r for r in rows if r["status"] != "unsupported"]
+            why = ("; ".join(f"{r['pigment_id']}: {r['status']} ({r['problems']})" for r in pig)
+                   if pig else "no library pigment found")
+            sel = f" among pigment_codes {sorted(codes)}" if codes else ""
+            raise ConfigError(f"variant {v!r} ({struct}): no pigment to compute{sel}: {why}. "
+                              "Check the structure, pigment_codes and the pigment library "
+                              "(siteshift inventory STRUCTURE lists what is found)")
+    warnings = []
+    for key, pid in named_pigments(config):
+        if pid not in found:
+            present = sorted({p for v in usable.values() for p in (r["pigment_id"] for r in v)})
+            raise ConfigError(f"config key '{key}': pigment {pid!r} is in no variant's "
+                              f"inventory; computed pigments: {present}")
+        bad = {v: r for v, r in found[pid].items()
+               if r["status"] != "ok" or (codes and r["ccd_code"] not in codes)}
+        for v, r in sorted(bad.items()):
+            why = (f"{r['status']}: {r['problems']}" if r["status"] != "ok"
+                   else f"{r['ccd_code']} not in pigment_codes")
+            warnings.append(f"config key '{key}': pigment {pid} is not computed in variant {v} "
+                            f"({why})")
+    return sorted(set(warnings))
+

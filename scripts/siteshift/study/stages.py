@@ -57,6 +57,17 @@ def _one_line_errors(exc_type, exc, tb):
         sys.__excepthook__(exc_type, exc, tb)
 
 
+def job_qm(sm) -> dict:
+    """A workflow job's `qm` settings: the rule's params (the keys that change numbers) and the
+    run-only keys (threads, max_memory_mb) from the config, so changing those reruns nothing."""
+    qm = dict(sm.params.qm)
+    run = (sm.config or {}).get("qm") or {}
+    for k in ("threads", "max_memory_mb"):
+        if k in run:
+            qm[k] = run[k]
+    return qm
+
+
 def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALTLOC,
                     overrides=None):
     """Write the inventory table (and JSON) of one structure; return the rows."""
