@@ -14,6 +14,10 @@ if not workflow.overwrite_configfiles:
 validate(config, "config/schemas/config.schema.yaml")
 
 
+# the report's landing page: the study's title, its summary and key tables (rule summarize_study)
+report: "config/report/workflow.rst"
+
+
 include: "rules/common.smk"
 include: "rules/mutate.smk"
 include: "rules/inventory.smk"
@@ -36,6 +40,7 @@ rule all:
         f"{RESULTS}/tables/environment.tsv",
         f"{RESULTS}/plots/site_energies.png",
         f"{RESULTS}/plots/spectrum.png",
+        f"{RESULTS}/summary.txt",
         optional_targets(),
         expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
 
@@ -43,3 +48,9 @@ rule all:
 rule inventories:
     input:
         expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
+
+
+onsuccess:
+    # the study summary (what was computed, reused, skipped or failed, and why) ends every run
+    if Path(f"{RESULTS}/summary.txt").exists():
+        print("\n" + Path(f"{RESULTS}/summary.txt").read_text())

@@ -66,3 +66,32 @@ rule plot_study:
         "../config/envs/siteshift.yaml"
     script:
         "../scripts/plot_study.py"
+
+
+rule summarize_study:
+    input:
+        inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),
+        results=summary_results,
+        tables=[
+            f"{RESULTS}/tables/site_energies.tsv",
+            f"{RESULTS}/tables/branch_shifts.tsv",
+            f"{RESULTS}/tables/variant_shifts.tsv",
+        ],
+    output:
+        tsv=report(
+            f"{RESULTS}/tables/study_summary.tsv",
+            caption="../config/report/study_summary.rst",
+            category="Tables",
+        ),
+        txt=f"{RESULTS}/summary.txt",
+        rst=f"{RESULTS}/summary.rst",
+    log:
+        f"{LOGS}/summarize_study/all.log",
+    params:
+        study=config["study"],
+        reference=REFERENCE,
+        codes=config["pigment_codes"],
+    conda:
+        "../config/envs/siteshift.yaml"
+    script:
+        "../scripts/summarize_study.py"

@@ -264,6 +264,17 @@ def all_inventory_rows(variant):
     return df[df.status == "ok"]
 
 
+def summary_results(wildcards):
+    """Every QM result the study summary counts: site results, ions, and tuning runs."""
+    out = all_site_results(wildcards)
+    if config["ions"]["enabled"]:
+        out += all_ions(wildcards)
+    if not QM["omega"]:
+        codes = sorted({c for v in VARIANTS for c in inventory_rows(v).ccd_code})
+        out += [f"{RESULTS}/tuning/{c}.json" for c in codes]
+    return out
+
+
 def optional_targets():
     """Outputs of optional stages that `all` asks for when they are switched on."""
     out = []

@@ -83,7 +83,16 @@ def test_plots_are_written(tmp_path, sites):
     sites.to_csv(tsv, sep="\t", index=False)
     plot_site_energies(tsv, tmp_path / "s.png", tmp_path / "s.svg")
     files = sorted(tmp_path.glob("wt_*.json")) + sorted(tmp_path.glob("mut_*.json"))
-    plot_spectra(files, tmp_path / "sp.png", tmp_path / "sp.svg", fwhm_ev=0.1)
+    d = plot_spectra(files, tmp_path / "sp.png", tmp_path / "sp.svg", fwhm_ev=0.1,
+                     reference="wt")
+    # the nm curve carries the Jacobian |dE/dλ| = hc/λ² (change of variables), so both curves
+    # enclose the same area, Σf (the Gaussians are normalised)
+    for v, y in d["curves"].items():
+        area_ev = np.trapezoid(y, d["grid_ev"])
+        assert -np.trapezoid(d["curves_nm"][v], d["nm"]) == pytest.approx(area_ev, rel=1e-4)
+    assert list(d["curves"])[0] == "wt"   # the reference first
+    assert list(d["differences"]) == ["mut"]
+    assert np.allclose(d["differences"]["mut"], d["curves"]["mut"] - d["curves"]["wt"])
     for f in ("s.png", "s.svg", "sp.png", "sp.svg"):
         assert (tmp_path / f).stat().st_size > 1000
     assert (tmp_path / "sp.png").read_bytes()[:4] == b"\x89PNG"

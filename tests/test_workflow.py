@@ -134,6 +134,24 @@ def test_tables_have_sensible_contents(study):
     assert not a.same_qm_inputs.any() and (a.delta_ev != 0).all()
 
 
+def test_study_summary_and_report(root, study):
+    # every run ends with the summary; the report's landing page carries the study's title, the
+    # summary and the key tables inline
+    text = (study / "results/summary.txt").read_text()
+    assert text.startswith("siteshift study 'pcd2-demo': 2 variant(s) (wt, A_I6E; reference wt)")
+    assert "site (continuum): 4 computed" in text
+    rows = pd.read_csv(study / "results/tables/study_summary.tsv", sep="\t")
+    inv = rows[rows.stage == "inventory"]
+    assert len(inv) == 4 and set(inv.status) == {"selected"}
+    site = rows[rows.stage == "site (continuum)"]
+    assert len(site) == 4 and (site.time_s > 0).all()
+    p = _snakemake(root, study, "--report", "results/report.html")
+    assert p.returncode == 0, p.stderr[-3000:]
+    html = (study / "results/report.html").read_text()
+    assert "Study pcd2-demo" in html and "Branch shifts" in html and "HC4-pocket" in html
+    assert not (study / "report.html").exists()
+
+
 def test_outputs_for_inspection(study):
     pig = study / "results/wt/pigments/A_HC4101"
     xyz = (pig / "qm_model.xyz").read_text().splitlines()

@@ -22,51 +22,114 @@ def _save(fig, out_png, out_svg=None):
     plt.close(fig)
 
 
-def plot_site_energies(sites_tsv, out_png, out_svg=None):
+def _reference_first(values, reference=None):
+    return sorted(values, key=lambda v: (v != reference, v))
+
+
+def _named(v, reference):
+    return f"{v} (reference)" if v == reference else v
+
+
+def plot_site_energies(sites_tsv, out_png, out_svg=None, reference=None):
+    """Every band of every site (markers per band, colours per variant, the reference first and
+    named), eV on the left axis and nm on the right; returns the frame plotted."""
     df = pd.read_csv(sites_tsv, sep="\t")
-    df = df[df.band != "S1"] if (df.band != "S1").any() else df
     if "mode" in df and df["mode"].nunique() > 1:  # continuum-only and embedded side by side
-        df = df.assign(variant=[v if m == "continuum" else f"{v} ({m})"
-                                for v, m in zip(df.variant, df["mode"])])
-    variants = sorted(df.variant.unique())
+        df = df.assign(series=[v if m == "continuum" else f"{v} ({m})"
+                               for v, m in zip(df.variant, df["mode"])])
+    else:
+        df = df.assign(series=df.variant)
+    order = {v: k for k, v in enumerate(_reference_first(df.variant.unique(), reference))}
+    series = sorted(df.series.unique(), key=lambda s: (order[s.split(" (")[0]], s))
     pigments = sorted(df.pigment_id.unique())
-    fig, ax = plt.subplots(figsize=(max(4, 1.2 * len(pigments) + 2), 3.6))
-    width = 0.8 / max(1, len(variants))
-    for k, v in enumerate(variants):
-        sv = df[df.variant == v]
-        for band, marker in zip(sorted(sv.band.unique()), "osD^v"):
+    bands = sorted(df.band.unique(), key=lambda b: (b == "S1", b))
+    fig, ax = plt.subplots(figsize=(max(6.0, 1.4 * len(pigments) + 3.0),
+                                    4.2 + 0.18 * len(series) * len(bands) / 2))
+    width = 0.8 / max(1, len(series))
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for k, sname in enumerate(series):
+        sv = df[df.series == sname]
+        base = sname.split(" (")[0]
+        label = (f"{base} (reference, {sname[len(base) + 2:-1]})"
+                 if base == reference and sname != base else _named(base, reference)
+                 + sname[len(base):])
+        for band, marker in zip(bands, "osD^v<>ph"):
             sb = sv[sv.band == band]
-            x = [pigments.index(p) + (k - (len(variants) - 1) / 2) * width for p in sb.pigment_id]
-            ax.scatter(x, sb.energy_ev, marker=marker, label=f"{v} {band}", zorder=3)
+            if not len(sb):
+                continue
+            x = [pigments.index(p) + (k - (len(series) - 1) / 2) * width for p in sb.pigment_id]
+            ax.scatter(x, sb.energy_ev, marker=marker, color=colors[k % len(colors)],
+                       label=f"{label}: {band}", zorder=3)
     ax.set_xticks(range(len(pigments)), pigments, rotation=30, ha="right")
+    ax.set_xlabel("pigment")
     ax.set_ylabel("site energy (eV)")
+    sec = ax.secondary_yaxis("right", functions=(lambda e: NM_EV / np.clip(e, 1e-3, None),
+                                                  lambda nm: NM_EV / np.clip(nm, 1e-3, None)))
+    sec.set_ylabel("wavelength (nm)")
     ax.grid(axis="y", alpha=0.3)
-    ax.legend(fontsize=8, frameon=False)
+    ax.legend(fontsize=7, frameon=False, ncol=2, loc="upper center",
+              bbox_to_anchor=(0.5, -0.28))
+    ax.set_title("Site energies (every computed band)", fontsize=9)
     _save(fig, out_png, out_svg)
+    return df
 
 
-def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15):
+def plot_spectra(result_files, out_png, out_svg=None, fwhm_ev=0.15, reference=None):
+    """Gaussian-broadened absorption per variant with its sticks (oscillator strengths, right
+    axis), in eV and in nm — the nm curve carries the Jacobian |dE/dλ| = hc/λ², so both enclose
+    the same area —, and the difference from the reference when there are other variants.
+    Returns {"grid_ev", "curves", "differences", "nm", "curves_nm"} (the plotted arrays)."""
     by_variant = {}
     for p in result_files:
         r = read_json(p)
         for s in r["states"]:
             by_variant.setdefault(r.get("variant") or "", []).append(
                 (s["energy_ev"], s["oscillator_strength"]))
+    variants = _reference_first(by_variant, reference)
+    ref = reference if reference in by_variant else variants[0]
     allE = [e for v in by_variant.values() for e, _f in v]
-    grid = np.linspace(min(allE) - 4 * fwhm_ev, max(allE) + 4 * fwhm_ev, 800)
-    fig, (a1, a2) = plt.subplots(1, 2, figsize=(9, 3.4))
-    for v, sticks in sorted(by_variant.items()):
-        e, f = np.array(sticks).T
-        y = spectrum(e, f, grid, fwhm_ev)
-        a1.plot(grid, y, label=v)
-        a2.plot(NM_EV / grid, y, label=v)
+    grid = np.linspace(max(min(allE) - 4 * fwhm_ev, 0.05), max(allE) + 4 * fwhm_ev, 1200)
+    nm = NM_EV / grid
+    curves = {v: spectrum(*np.array(by_variant[v]).T, grid, fwhm_ev) for v in variants}
+    curves_nm = {v: y * NM_EV / nm ** 2 for v, y in curves.items()}
+    diffs = {v: curves[v] - curves[ref] for v in variants if v != ref}
+    ncol = 3 if diffs else 2
+    fig, axes = plt.subplots(1, ncol, figsize=(4.3 * ncol, 3.6))
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    a1, a2 = axes[0], axes[1]
+    s1 = a1.twinx()
+    for k, v in enumerate(variants):
+        c = colors[k % len(colors)]
+        e, f = np.array(by_variant[v]).T
+        a1.plot(grid, curves[v], color=c, label=_named(v, ref), lw=1.6 if k == 0 else 1.2,
+                ls="-" if k == 0 else "--")
+        s1.vlines(e, 0, f, color=c, lw=1.0, alpha=0.7)
+        a2.plot(nm, curves_nm[v], color=c, label=_named(v, ref), ls="-" if k == 0 else "--")
+    s1.set_ylabel("oscillator strength f (sticks)")
+    s1.set_ylim(bottom=0)
     a1.set_xlabel("energy (eV)")
+    a1.set_ylabel("absorbance per eV (Σf-normalised)")
     a2.set_xlabel("wavelength (nm)")
+    a2.set_ylabel("absorbance per nm (× |dE/dλ|)")
     for a in (a1, a2):
-        a.set_ylabel("absorbance (arb. units)")
-        a.legend(fontsize=8, frameon=False)
+        a.legend(fontsize=7, frameon=False)
+        a.set_ylim(bottom=0)
+    if diffs:
+        a3 = axes[2]
+        for k, (v, d) in enumerate(diffs.items(), start=1):
+            a3.plot(grid, d, color=colors[k % len(colors)], label=f"{v} − {ref}")
+            i = int(np.argmax(np.abs(d)))
+            a3.annotate(f"max |Δ| {abs(d[i]):.3g} at {grid[i]:.3f} eV", (grid[i], d[i]),
+                        fontsize=6, xytext=(4, 4), textcoords="offset points")
+        a3.axhline(0, color="k", lw=0.8)
+        a3.set_xlabel("energy (eV)")
+        a3.set_ylabel("difference (per eV)")
+        a3.set_title(f"difference from the reference {ref}", fontsize=8)
+        a3.legend(fontsize=7, frameon=False)
     fig.suptitle(f"Simulated absorption (Gaussian FWHM {fwhm_ev} eV)", fontsize=9)
     _save(fig, out_png, out_svg)
+    return {"grid_ev": grid, "curves": curves, "differences": diffs, "nm": nm,
+            "curves_nm": curves_nm}
 
 
 def plot_sweep(df, out_png, out_svg=None):
@@ -95,26 +158,41 @@ def plot_sweep(df, out_png, out_svg=None):
     _save(fig, out_png, out_svg)
 
 
-def plot_variant_shifts(variants_tsv, out_png, out_svg=None):
-    """Bar chart of E(variant) − E(reference) per pigment and band, in meV (an empty frame when
-    the study has only the reference)."""
+def plot_variant_shifts(variants_tsv, out_png, out_svg=None, reference=None):
+    """Bar chart of E(variant) − E(reference) per pigment and band in meV (cm⁻¹ on the right),
+    each bar labelled with its value (a zero shift drawn as a tick), the reference named; an
+    empty frame when the study has only the reference."""
     try:
         df = pd.read_csv(variants_tsv, sep="\t")
     except pd.errors.EmptyDataError:
         df = pd.DataFrame()
-    fig, ax = plt.subplots(figsize=(5.5, 3.4))
+    if reference is None and len(df) and "reference" in df:
+        reference = str(df.reference.iloc[0])
+    fig, ax = plt.subplots(figsize=(max(5.5, 0.7 * len(df) + 2), 3.6))
     if len(df) and "delta_ev" in df:
         df = df[df.status == "ok"]
-        df = df[df.band != "S1"] if (df.band != "S1").any() else df
         modes = df["mode"] if "mode" in df else ["continuum"] * len(df)
         labels = [f"{v}\n{p} {b}" + ("" if m == "continuum" else f"\n{m}")
                   for v, p, b, m in zip(df.variant, df.pigment_id, df.band, modes)]
-        ax.bar(range(len(df)), df.delta_ev * 1000, color=["tab:red" if d < 0 else "tab:blue"
-                                                          for d in df.delta_ev])
-        ax.set_xticks(range(len(df)), labels, fontsize=7)
+        mev = df.delta_ev.to_numpy() * 1000
+        x = np.arange(len(df))
+        ax.bar(x, mev, color=["tab:red" if d < 0 else "tab:blue" for d in mev])
+        ax.scatter(x[mev == 0], mev[mev == 0], marker="_", s=200, color="k", zorder=3)
+        for xi, d in zip(x, mev):
+            ax.annotate(f"{d:+.1f}", (xi, d), fontsize=6, ha="center",
+                        va="bottom" if d >= 0 else "top",
+                        xytext=(0, 2 if d >= 0 else -2), textcoords="offset points")
+        ax.set_xticks(x, labels, fontsize=6)
         ax.axhline(0, color="k", lw=0.8)
-    ax.set_ylabel("shift vs reference (meV)")
-    ax.set_title("variant shifts (red: red-shifted)", fontsize=9)
+        lim = max(1.0, float(np.abs(mev).max()) if len(mev) else 1.0) * 1.25
+        ax.set_ylim(-lim, lim)
+    else:
+        ax.text(0.5, 0.5, "only the reference variant", ha="center", transform=ax.transAxes)
+    ax.set_ylabel(f"E(variant) − E({reference or 'reference'}) (meV)")
+    sec = ax.secondary_yaxis("right", functions=(lambda m: m * EV2CM1 / 1000,
+                                                  lambda c: c * 1000 / EV2CM1))
+    sec.set_ylabel("cm⁻¹")
+    ax.set_title(f"Shifts against the reference {reference or ''} (red: red shift)", fontsize=9)
     _save(fig, out_png, out_svg)
 
 
