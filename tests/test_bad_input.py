@@ -60,3 +60,20 @@ def test_structure_with_unplaced_atom_is_refused(root, tmp_path, capsys, value, 
     assert main(["inventory", str(pdb)]) == 2
     err = capsys.readouterr().err
     assert "atom C1 of HC4 A101" in err and shown in err
+
+
+def test_environment_goes_on_past_a_failing_pigment(root, tmp_path, capsys):
+    # B_HC4101 loses a core atom: it is reported, A_HC4101 is still measured (exit 1: partial)
+    lines = (root / "config/demo/pcd2_wt.pdb").read_text().splitlines(keepends=True)
+    lines = [x for x in lines if not (x.startswith("HETATM") and x[17:20] == "HC4"
+                                      and x[21] == "B" and x[12:16].strip() == "C2")]
+    pdb = tmp_path / "s.pdb"
+    pdb.write_text("".join(lines))
+    out = tmp_path / "env.json"
+    assert main(["environment", str(pdb), "--json", str(out)]) == 1
+    io = capsys.readouterr()
+    assert "A_HC4101" in io.out and "B_HC4101" in io.err and "failed" in io.err
+    import json
+    rec = {r["pigment_id"]: r for r in json.loads(out.read_text())}
+    assert "dielectric" in rec["A_HC4101"] and "C2" in rec["B_HC4101"]["error"]
+

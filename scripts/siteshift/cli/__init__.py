@@ -78,10 +78,16 @@ def cmd_environment(args):
         pigs = [p for p in pigs if p.id == args.pigment]
         if not pigs:
             raise InputError(f"pigment {args.pigment} not found in {args.structure}")
+    from ..structures.qmmodel import ModelError
     model = DielectricModel(mode=args.mode, exposed_medium=args.exposed_medium)
-    out = []
+    out, failed = [], []
     for r in pigs:
-        metrics = measure_site(atoms, r, lib)
+        try:   # one pigment that cannot be modelled is reported; the others go on
+            metrics = measure_site(atoms, r, lib)
+        except ModelError as exc:
+            failed.append({"pigment_id": r.id, "error": str(exc)})
+            print(f"{r.id:<14s} failed: {exc}", file=sys.stderr)
+            continue
         d = model.assign(r.id, metrics)
         out.append({"pigment_id": r.id, "metrics": metrics, "dielectric": d})
         print(f"{r.id:<14s} eps_static={d['eps_static']:6.2f} eps_optical={d['eps_optical']:5.2f}"
@@ -90,7 +96,11 @@ def cmd_environment(args):
               f"waters={metrics['n_waters']} packing={metrics['packing_density']:.2f}")
     if args.json:
         from ..base.io import write_json
-        write_json(args.json, out)
+        write_json(args.json, out + failed)
+    if failed:
+        print(f"{len(failed)} of {len(pigs)} pigment(s) failed (listed above); the others were "
+              "measured", file=sys.stderr)
+        return 2 if not out else 1
     return 0
 
 
@@ -293,7 +303,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--axial-ligands", action="store_true",
                    help="add metal-coordinating side chains to the QM model")
     p.set_defaults(func=cmd_extract)
-    p = add("environment", "environment metrics and dielectrics")
+    p = add("environment", "environment metrics and dielectrics (exit 1 if some pigments "
+                            "failed, each listed; 2 if none could be measured)")
     p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")
     p.add_argument("--pigment", help="only this pigment id (default: all)")
     p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
