@@ -11,4 +11,5 @@ setup_logging(sm.log[0])
 shift_tables(list(sm.input.excitations), sm.output.sites, sm.output.branches, sm.output.variants,
              reference=sm.params.reference, branches=sm.params.branches,
              out_pairs=sm.output.pairs, reference_structure=sm.params.reference_structure,
-             altloc=sm.params.altloc, library=load_library(extra=sm.params.pigments))
+             altloc=sm.params.altloc, library=load_library(extra=sm.params.pigments),
+             inventories=dict(zip(sorted(sm.config["variants"]), sm.input.inventories)))

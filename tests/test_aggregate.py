@@ -66,6 +66,29 @@ def test_unmatched_pigment_reported(tmp_path, sites):
     assert "only in variant" in set(vs.status)
 
 
+def test_failed_pigments_are_named_in_the_shift_tables(tmp_path, sites):
+    from siteshift.study.tables import inventory_failures
+    inv = tmp_path / "inv.tsv"
+    pd.DataFrame([{"pigment_id": "B_HC4101", "ccd_code": "HC4", "status": "error",
+                   "problems": "core atom(s) C2 missing; rebuild them"}]).to_csv(
+        inv, sep="\t", index=False)
+    failures = inventory_failures({"mut": inv})
+    only_a = sites[~((sites.variant == "mut") & (sites.pigment_id == "B_HC4101"))]
+    br = branch_shifts(only_a, [("p", "A_HC4101", "B_HC4101")], failures)
+    row = br[br.variant == "mut"].iloc[0]
+    assert row.status == "missing b B_HC4101 (failed: core atom(s) C2 missing; rebuild them)"
+    vs = variant_shifts(only_a, "wt", failures)
+    assert list(vs[vs.pigment_id == "B_HC4101"].status) == [
+        "only in reference (failed: core atom(s) C2 missing; rebuild them)"]
+    # both partners gone (the variant has no site left): the pair is still reported, both named
+    both = only_a[only_a.variant == "wt"]
+    failures[("mut", "A_HC4101")] = "failed: core atom(s) O1 missing"
+    row = branch_shifts(both, [("p", "A_HC4101", "B_HC4101")], failures).query(
+        "variant == 'mut'").iloc[0]
+    assert row.status == ("missing a A_HC4101 (failed: core atom(s) O1 missing) and b B_HC4101 "
+                          "(failed: core atom(s) C2 missing; rebuild them)")
+
+
 def test_auto_pairs():
     assert auto_pairs(["A_BCL302", "B_BCL302", "A_BPH401", "M_BPH401", "A_HEM9"]) == [
         ("BCL302:A-B", "A_BCL302", "B_BCL302"), ("BPH401:A-M", "A_BPH401", "M_BPH401")]

@@ -75,16 +75,28 @@ def auto_pairs(pigment_ids, chains=None):
     return pairs
 
 
-def branch_shifts(sites: pd.DataFrame, pairs) -> pd.DataFrame:
-    """ΔE = E(a) − E(b) per variant, pair and band; pairs: [(name, a, b)]."""
+def _why(failures, variant, pid):
+    """' (failed: reason)' of a pigment that was not computed in a variant, if known."""
+    why = (failures or {}).get((variant, pid))
+    return f" ({why})" if why else ""
+
+
+def branch_shifts(sites: pd.DataFrame, pairs, failures=None) -> pd.DataFrame:
+    """ΔE = E(a) − E(b) per variant, pair and band; pairs: [(name, a, b)]. failures:
+    {(variant, pigment_id): reason} of pigments not computed (from the inventories), named in
+    the status of a pair that lacks one or both partners."""
     rows = []
-    for (variant, mode), sv in sites.groupby(["variant", "mode"], sort=True):
+    variants = sorted(set(sites.variant) | {v for v, _p in (failures or {})})
+    for variant, mode in [(v, m) for v in variants for m in sorted(set(sites["mode"]))]:
+        sv = sites[(sites.variant == variant) & (sites["mode"] == mode)]
         for name, a, b in pairs:
             ea, eb = sv[sv.pigment_id == a], sv[sv.pigment_id == b]
             if ea.empty or eb.empty:
+                gone = [f"{x} {pid}{_why(failures, variant, pid)}"
+                        for x, pid, e in (("a", a, ea), ("b", b, eb)) if e.empty]
                 rows.append({"variant": variant, "mode": mode, "pair": name, "pigment_a": a,
                              "pigment_b": b, "band": None,
-                             "status": "missing " + ("a" if ea.empty else "b")})
+                             "status": "missing " + " and ".join(gone)})
                 continue
             for band in sorted(set(ea.band) & set(eb.band)):
                 ra, rb = ea[ea.band == band].iloc[0], eb[eb.band == band].iloc[0]
@@ -109,9 +121,9 @@ VARIANT_COLUMNS = ["variant", "mode", "reference", "pigment_id", "band", "energy
                    "eps_static_variant", "eps_static_reference", "same_qm_inputs", "status"]
 
 
-def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
+def variant_shifts(sites: pd.DataFrame, reference: str, failures=None) -> pd.DataFrame:
     """E(variant) − E(reference) per pigment, band and mode (continuum, embedded); unmatched
-    pigments reported."""
+    pigments reported, with the reason one was not computed (failures, as in branch_shifts)."""
     rows = []
     for (variant, mode), sv in sites.groupby(["variant", "mode"], sort=True):
         if variant == reference:
@@ -123,7 +135,9 @@ def variant_shifts(sites: pd.DataFrame, reference: str) -> pd.DataFrame:
             if a.empty or r.empty:
                 rows.append({"variant": variant, "mode": mode, "reference": reference,
                              "pigment_id": pid, "band": None,
-                             "status": "only in reference" if a.empty else "only in variant"})
+                             "status": (f"only in reference{_why(failures, variant, pid)}"
+                                        if a.empty else
+                                        f"only in variant{_why(failures, reference, pid)}")})
                 continue
             for band in sorted(set(a.band) & set(r.band)):
                 va, vr = a[a.band == band].iloc[0], r[r.band == band].iloc[0]
@@ -239,9 +253,23 @@ def environment_table(environment_files, out_tsv):
     return df
 
 
+def inventory_failures(inventories: dict) -> dict:
+    """{(variant, pigment_id): reason} of every pigment an inventory found but could not model
+    (status error), from variant -> inventory TSV."""
+    out = {}
+    for v, path in (inventories or {}).items():
+        inv = pd.read_csv(path, sep="\t", keep_default_na=False)
+        for r in inv[inv.status == "error"].itertuples():
+            out[(v, r.pigment_id)] = f"failed: {r.problems}"
+    return out
+
+
 def shift_tables(result_files, out_sites, out_branches, out_variants, reference, branches=None,
-                 out_pairs=None, reference_structure=None, altloc=default("altloc"), library=None):
-    """Site-energy, branch-shift and variant-shift tables (and the pair list used)."""
+                 out_pairs=None, reference_structure=None, altloc=default("altloc"), library=None,
+                 inventories=None):
+    """Site-energy, branch-shift and variant-shift tables (and the pair list used).
+    inventories: variant -> inventory TSV, whose failed pigments are named in the shift tables."""
+    failures = inventory_failures(inventories)
     sites = site_energies(result_files)
     branches = branches or {}
     pairs = [tuple(p) for p in branches.get("pairs", [])]
@@ -275,8 +303,8 @@ def shift_tables(result_files, out_sites, out_branches, out_variants, reference,
         for pid in (a, b):
             if pid not in set(sites.pigment_id):
                 log.warning("branch pair pigment %s has no result in any variant", pid)
-    br = branch_shifts(sites, pairs)
-    vs = variant_shifts(sites, reference)
+    br = branch_shifts(sites, pairs, failures)
+    vs = variant_shifts(sites, reference, failures)
     io.write_tsv(out_sites, sites)
     io.write_tsv(out_branches, br)
     io.write_tsv(out_variants, vs)
