@@ -25,6 +25,7 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
     from scipy.optimize import minimize_scalar
 
     settings = settings or ExciteSettings()
+    scf_log = log   # each SCF cycle reaches the log (progress), when there is one
     log = log or (lambda s: None)
     tune = default("qm.tune")
     bounds = tuple(tune["bounds"] if bounds is None else bounds)
@@ -41,7 +42,7 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
 
     def energy(mol, key, omega):
         mf = make_scf(mol, settings, SRSH(settings.alpha, omega, 1.0), solvated=False)
-        mf, _, _ = run_scf(mf, dm0=dms.get(key))
+        mf, _, _ = run_scf(mf, dm0=dms.get(key), log=scf_log)
         dms[key] = mf.make_rdm1()
         return mf
 
