@@ -156,3 +156,40 @@ def test_single_variant_study_gives_empty_but_typed_tables(tmp_path):
     write_tsv(tmp_path / "vs.tsv", vs)
     plot_variant_shifts(tmp_path / "vs.tsv", tmp_path / "vs.png")
     assert (tmp_path / "vs.png").stat().st_size > 1000
+
+
+def test_study_summary_counts_and_reasons(tmp_path):
+    from siteshift.study.summary import summary_rows, summary_rst, summary_text
+    inv = tmp_path / "inv.tsv"
+    pd.DataFrame([
+        {"pigment_id": "A_HC4101", "ccd_code": "HC4", "status": "ok", "problems": ""},
+        {"pigment_id": "B_HC4101", "ccd_code": "HC4", "status": "error",
+         "problems": "core atom(s) C2 missing"},
+        {"pigment_id": "A_FMN201", "ccd_code": "FMN", "status": "ok", "problems": ""},
+        {"pigment_id": "A_SO4301", "ccd_code": "SO4", "status": "unsupported", "problems": ""},
+    ]).to_csv(inv, sep="\t", index=False)
+    site = tmp_path / "wt/pigments/A_HC4101/excited_states.json"
+    site.parent.mkdir(parents=True)
+    site.write_text(json.dumps({"variant": "wt", "pigment_id": "A_HC4101", "ccd_code": "HC4",
+                                "cache": "reused", "timings_s": {"scf": 10.0, "response": 2.5}}))
+    tune = tmp_path / "tuning/HC4.json"
+    tune.parent.mkdir()
+    tune.write_text(json.dumps({"ccd_code": "HC4", "tuned_on": "A_HC4101", "time_s": 30.0,
+                                "at_bound": True, "omega_bohr_inv": 0.5,
+                                "bounds_bohr_inv": [0.1, 0.5]}))
+    rows = summary_rows({"wt": inv}, [site, tune], codes={"HC4"})
+    st = dict(zip(rows.pigment_id + "/" + rows.stage, rows.status))
+    assert st == {"A_HC4101/inventory": "selected", "B_HC4101/inventory": "failed",
+                  "A_FMN201/inventory": "skipped", "A_SO4301/inventory": "skipped",
+                  "A_HC4101/site (continuum)": "reused", "A_HC4101/ω tuning": "computed"}
+    assert rows[rows.stage == "site (continuum)"].time_s.iloc[0] == 12.5
+    text = summary_text("demo", "wt", rows, ["config key 'x': y"])
+    assert "1 site(s) computed" in text and "site (continuum): 1 reused\n" in text
+    assert "wt B_HC4101 (HC4): failed: core atom(s) C2 missing" in text
+    assert "FMN not in pigment_codes" in text and "not in the pigment library" in text
+    assert "tuned ω 0.5000 at the search bound" in text and "config key 'x': y" in text
+    # the landing page is valid reStructuredText (docutils renders it without errors)
+    from docutils.core import publish_parts
+    html = publish_parts(summary_rst(text, tmp_path), writer_name="html",
+                         settings_overrides={"report_level": 2, "halt_level": 2})["html_body"]
+    assert "Study summary" in html

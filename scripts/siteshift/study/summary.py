@@ -60,11 +60,17 @@ def summary_rows(inventories: dict, results: list, codes=()) -> pd.DataFrame:
         if f.parent.parent.name == "tuning" or f.parent.name == "tuning":
             stage = "ω tuning"
         cache = rec.get("cache", "computed")
+        why = "same QM inputs found in the QM cache" if cache == "reused" else ""
+        if rec.get("at_bound"):   # a tuned ω at its search bound is a warning for the summary
+            why = (f"warning: tuned ω {rec['omega_bohr_inv']:.4f} at the search bound "
+                   f"{rec.get('bounds_bohr_inv')}; widen qm.tune.bounds")
+        if rec.get("converged") is False:
+            why = "warning: not converged"
         rows.append({"variant": rec.get("variant") or (f.parts[-4] if len(f.parts) >= 4 else ""),
                      "pigment_id": rec.get("pigment_id") or rec.get("tuned_on", ""),
                      "ccd_code": rec.get("ccd_code", ""), "stage": stage,
                      "status": "reused" if cache == "reused" else "computed",
-                     "reason": "same QM inputs found in the QM cache" if cache == "reused" else "",
+                     "reason": why,
                      "time_s": _time(rec), "file": str(f)})
     return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
 
@@ -87,6 +93,9 @@ def summary_text(study: str, reference: str, rows: pd.DataFrame, warnings=()) ->
         lines.append("Not computed:")
         for r in bad.itertuples():
             lines.append(f"  {r.variant} {r.pigment_id} ({r.ccd_code}): {r.status}: {r.reason}")
+    warned = [f"{r.stage} {r.pigment_id}: {r.reason[len('warning: '):]}"
+              for r in rows.itertuples() if str(r.reason).startswith("warning: ")]
+    warnings = list(warnings) + warned
     if warnings:
         lines.append("Warnings:")
         lines += [f"  {w}" for w in warnings]
