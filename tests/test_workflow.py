@@ -139,7 +139,8 @@ def test_study_summary_and_report(root, study):
     # summary and the key tables inline
     text = (study / "results/summary.txt").read_text()
     assert text.startswith("siteshift study 'pcd2-demo': 2 variant(s) (wt, A_I6E; reference wt)")
-    assert "site (continuum): 4 computed" in text
+    # B_HC4101 is untouched by the mutation: its QM result is reused from the cache
+    assert "site (continuum): 3 computed, 1 reused" in text
     rows = pd.read_csv(study / "results/tables/study_summary.tsv", sep="\t")
     inv = rows[rows.stage == "inventory"]
     assert len(inv) == 4 and set(inv.status) == {"selected"}
