@@ -68,6 +68,11 @@ rule plot_study:
         "../scripts/plot_study.py"
 
 
+# the summary reads small files: it runs where Snakemake runs, never as a cluster submission
+localrules:
+    summarize_study,
+
+
 rule summarize_study:
     input:
         inventories=expand(f"{RESULTS}/{{variant}}/inventory.tsv", variant=VARIANTS),

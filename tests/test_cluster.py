@@ -41,7 +41,7 @@ def test_jobs_run_as_separate_submissions(root, tmp_path):
     assert p.returncode == 0, (p.stdout + p.stderr)[-4000:]
     subs = (tmp_path / "submissions.log").read_text().splitlines()
     # inventory, 2 × extract, 2 × environment, 2 × excite, environment table, shift tables,
-    # plots: 10 submissions (rule `all` runs locally)
+    # plots: 10 submissions (rules `all` and `summarize_study` run locally)
     assert len(subs) == 10, subs
     assert len({s.split()[1] for s in subs}) == 10  # a job script per submission
     sites = pd.read_csv(tmp_path / "results/tables/site_energies.tsv", sep="\t")
