@@ -204,7 +204,7 @@ def test_bad_settings_are_refused():
         ExciteSettings(eps_static=2.0, eps_optical=3.0).check()
     with pytest.raises(EngineError, match=">= 1"):
         ExciteSettings(eps_static=0.5, eps_optical=0.5).check()
-    with pytest.raises(EngineError, match="impossible"):
+    with pytest.raises(EngineError, match="cannot have 2S = 1"):   # electron parity
         build_molecule(["O", "H", "H"], WATER[1], charge=0, spin=1)
 
 
