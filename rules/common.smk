@@ -7,6 +7,7 @@ sys.path.insert(0, str(Path(workflow.basedir) / "scripts"))
 from snakemake.logging import logger  # noqa: E402
 
 from siteshift.study.config import check_config  # noqa: E402
+from siteshift.base.defaults import RUN_ONLY_QM_KEYS  # noqa: E402
 
 check_config(config, Path.cwd())
 
@@ -20,8 +21,7 @@ REFERENCE = config["reference"]
 QM = config["qm"]
 # qm keys that change how a job runs, not its numbers: kept out of the rules' params (a changed
 # param reruns the job) and read by the job scripts from the config (siteshift.study.stages.job_qm)
-QM_RUN_ONLY = ("threads", "max_memory_mb")
-QM_PARAMS = {k: v for k, v in QM.items() if k not in QM_RUN_ONLY}
+QM_PARAMS = {k: v for k, v in QM.items() if k not in RUN_ONLY_QM_KEYS}
 # ω tuning is a gas-phase ground-state job: continuum and response keys do not reach it
 QM_TUNING_PARAMS = {
     k: v

@@ -91,3 +91,9 @@ def preset(name: str) -> dict:
     except KeyError:
         raise KeyError(f"config key 'qm.preset': {name!r} is not one of "
                        f"{sorted(QM_PRESETS)}") from None
+
+
+#: `qm` config keys that change how a QM job runs, not its numbers: left out of the rules'
+#: params (rules/common.smk), read from the config by siteshift.study.stages.job_qm, and (but
+#: threads, no ExciteSettings field) out of the QM cache key
+RUN_ONLY_QM_KEYS = ("threads", "max_memory_mb")

@@ -127,7 +127,7 @@ def cmd_excite(args):
     from ..base.io import write_json
     el, xyz = read_xyz(args.xyz)
     s = _settings(args)
-    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity, s.basis)
+    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
     tuned = None
     if args.tune:
@@ -195,7 +195,7 @@ def cmd_tune(args):
     el, xyz = read_xyz(args.xyz)
     args.gas, args.omega = True, None
     s = _settings(args)
-    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity, s.basis)
+    check_xyz_job(args.xyz, el, xyz, args.charge, args.multiplicity)
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
     xatol = args.xatol if args.xatol is not None else preset(args.preset)["tune_xatol"]
     res = tune_omega(el, xyz, args.charge, args.multiplicity - 1, s, bounds=tuple(args.bounds),

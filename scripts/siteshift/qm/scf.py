@@ -28,11 +28,11 @@ from .xcgrid import DenseNumInt
 MAX_FRAGMENT_GAP_A = 50.0
 
 
-def check_molecule(elements, coords_ang, charge=0, spin=0, basis=None, source="molecule"):
+def check_molecule(elements, coords_ang, charge=0, spin=0, source="molecule"):
     """Refuse input a QM job cannot mean, naming the atom and what to do (EngineError):
     unknown elements, non-finite or placeholder coordinates, parts of the molecule more than
-    MAX_FRAGMENT_GAP_A apart, impossible electron counts, and (if given) a basis PySCF does not
-    know for one of the elements."""
+    MAX_FRAGMENT_GAP_A apart, and impossible electron counts (an unknown basis is named by
+    :func:`build_molecule`, which loads it once)."""
     from scipy.sparse.csgraph import connected_components
     from scipy.spatial import cKDTree
     coords = np.asarray(coords_ang, dtype=float).reshape(-1, 3)
@@ -75,17 +75,6 @@ def check_molecule(elements, coords_ang, charge=0, spin=0, basis=None, source="m
         raise EngineError(f"{source}: {nelec} electrons (charge {int(charge):+d}) cannot have "
                           f"2S = {int(spin)} unpaired electrons (multiplicity {int(spin) + 1}); "
                           "an even electron count needs an odd multiplicity and vice versa")
-    if basis is not None and isinstance(basis, str):
-        for sym in sorted({str(e).strip().capitalize() for e in elements}):
-            try:
-                with warnings.catch_warnings():   # "try basis-set-exchange" hints
-                    warnings.simplefilter("ignore")
-                    ok = bool(gto.basis.load(basis, sym))
-            except (RuntimeError, KeyError, ValueError, OSError, BasisNotFoundError):
-                ok = False
-            if not ok:
-                raise EngineError(f"{source}: basis {basis!r} is not known to PySCF for element "
-                                  f"{sym}; check its spelling (e.g. 6-31g, def2-svp, cc-pvdz)")
     return coords
 
 
@@ -93,12 +82,18 @@ def build_molecule(elements, coords_ang, charge=0, spin=0, basis="def2-svp", max
                    verbose=0) -> gto.Mole:
     """A PySCF molecule from element symbols and Å coordinates; spin = 2S (unpaired electrons).
     The input is checked first (:func:`check_molecule`)."""
-    coords = check_molecule(elements, coords_ang, charge, spin, basis)
+    coords = check_molecule(elements, coords_ang, charge, spin)
     atom = [(str(e).strip().capitalize(), tuple(c)) for e, c in zip(elements, coords)]
     mol = gto.Mole(atom=atom, basis=basis, charge=int(charge), spin=int(spin), unit="Angstrom",
                    max_memory=max_memory_mb, verbose=verbose)
     try:
-        mol.build()
+        with warnings.catch_warnings():   # PySCF's "try basis-set-exchange" hint
+            warnings.simplefilter("ignore")
+            mol.build()
+    except BasisNotFoundError:
+        raise EngineError(f"basis {basis!r} is not known to PySCF for these elements "
+                          f"({', '.join(sorted(set(a[0] for a in atom)))}); check its spelling "
+                          "(e.g. 6-31g, def2-svp, cc-pvdz)") from None
     except RuntimeError as exc:
         raise EngineError(f"PySCF could not build the molecule (charge {charge}, 2S {spin}, "
                           f"basis {basis}): {exc}") from None

@@ -39,21 +39,24 @@ def _check_records(path: Path, fmt: str):
     say 'Compressed file ended…' or 'index 0 is out of bounds')."""
     import gzip
     opener = gzip.open if path.suffix.lower() == ".gz" else open
-    try:
+    marks = ("ATOM", "HETATM") if fmt == "PDB" else ("_atom_site.",)
+    blank = True
+    try:   # read only as far as the first atom record (the parser reads the file next)
         with opener(path, "rt", errors="replace") as fh:
-            text = fh.read()
+            for line in fh:
+                blank = blank and not line.strip()
+                if line.startswith(marks):
+                    return
     except (OSError, EOFError) as exc:
         raise StructureError(f"{path}: cannot be read ({exc}); is it a complete (gzipped) "
                              "file?") from None
-    if not text.strip():
+    if blank:
         raise StructureError(f"{path}: the file is empty; give a PDB or mmCIF structure")
     if fmt == "PDB":
-        if not any(line.startswith(("ATOM", "HETATM")) for line in text.splitlines()):
-            raise StructureError(f"{path}: no ATOM or HETATM records; is it a PDB file? (an "
-                                 "mmCIF file must end in .cif)")
-    elif "_atom_site." not in text:
-        raise StructureError(f"{path}: no _atom_site loop; is it an mmCIF file? (a PDB file "
-                             "must end in .pdb)")
+        raise StructureError(f"{path}: no ATOM or HETATM records; is it a PDB file? (an mmCIF "
+                             "file must end in .cif)")
+    raise StructureError(f"{path}: no _atom_site loop; is it an mmCIF file? (a PDB file must "
+                         "end in .pdb)")
 
 
 def _check_positions(path: Path, atoms):

@@ -34,25 +34,22 @@ def plot_site_energies(sites_tsv, out_png, out_svg=None, reference=None):
     """Every band of every site (markers per band, colours per variant, the reference first and
     named), eV on the left axis and nm on the right; returns the frame plotted."""
     df = pd.read_csv(sites_tsv, sep="\t")
-    if "mode" in df and df["mode"].nunique() > 1:  # continuum-only and embedded side by side
-        df = df.assign(series=[v if m == "continuum" else f"{v} ({m})"
-                               for v, m in zip(df.variant, df["mode"])])
-    else:
-        df = df.assign(series=df.variant)
-    order = {v: k for k, v in enumerate(_reference_first(df.variant.unique(), reference))}
-    series = sorted(df.series.unique(), key=lambda s: (order[s.split(" (")[0]], s))
+    # one series per variant and mode (continuum-only and embedded side by side); the mode is
+    # named only when a study has both
+    modes = df["mode"] if "mode" in df else pd.Series("continuum", index=df.index)
+    both = modes.nunique() > 1
+    rank = {v: k for k, v in enumerate(_reference_first(df.variant.unique(), reference))}
+    series = sorted(set(zip(df.variant, modes)), key=lambda vm: (rank[vm[0]], vm[1]))
     pigments = sorted(df.pigment_id.unique())
     bands = sorted(df.band.unique(), key=lambda b: (b == "S1", b))
     fig, ax = plt.subplots(figsize=(max(6.0, 1.4 * len(pigments) + 3.0),
                                     4.2 + 0.18 * len(series) * len(bands) / 2))
     width = 0.8 / max(1, len(series))
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    for k, sname in enumerate(series):
-        sv = df[df.series == sname]
-        base = sname.split(" (")[0]
-        label = (f"{base} (reference, {sname[len(base) + 2:-1]})"
-                 if base == reference and sname != base else _named(base, reference)
-                 + sname[len(base):])
+    for k, (v, mode) in enumerate(series):
+        sv = df[(df.variant == v) & (modes == mode)]
+        notes = (["reference"] if v == reference else []) + ([mode] if both else [])
+        label = v + (f" ({', '.join(notes)})" if notes else "")
         for band, marker in zip(bands, "osD^v<>ph"):
             sb = sv[sv.band == band]
             if not len(sb):

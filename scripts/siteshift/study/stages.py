@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 
 from ..base import io
-from ..base.defaults import default
+from ..base.defaults import RUN_ONLY_QM_KEYS, default
 from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.bands import assign_bands
@@ -62,9 +62,7 @@ def job_qm(sm) -> dict:
     run-only keys (threads, max_memory_mb) from the config, so changing those reruns nothing."""
     qm = dict(sm.params.qm)
     run = (sm.config or {}).get("qm") or {}
-    for k in ("threads", "max_memory_mb"):
-        if k in run:
-            qm[k] = run[k]
+    qm.update({k: run[k] for k in RUN_ONLY_QM_KEYS if k in run})
     return qm
 
 
@@ -247,7 +245,7 @@ def site_settings(rec: dict, dielectric: dict, qm: dict, tuning_json=None) -> Ex
 
 
 #: settings that change how a job runs but not its numbers: left out of the QM cache key
-RUN_ONLY_SETTINGS = ("max_memory_mb",)
+RUN_ONLY_SETTINGS = tuple(k for k in RUN_ONLY_QM_KEYS if k != "threads")
 
 
 def qm_key(rec: dict, settings: ExciteSettings, charges=None) -> dict:

@@ -57,7 +57,7 @@ def summary_rows(inventories: dict, results: list, codes=()) -> pd.DataFrame:
         f = Path(f)
         rec = json.loads(f.read_text())
         stage = SITE_STAGES.get(f.name, f.name)
-        if f.parent.parent.name == "tuning" or f.parent.name == "tuning":
+        if f.parent.name == "tuning":
             stage = "ω tuning"
         cache = rec.get("cache", "computed")
         why = "same QM inputs found in the QM cache" if cache == "reused" else ""
