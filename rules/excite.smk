@@ -3,6 +3,8 @@ rule tune_omega:
         model=tuning_model,
     output:
         json=f"{RESULTS}/tuning/{{code}}.json",
+        # the neutral's orbitals at the tuned omega: every site of this type starts from them
+        orbitals=f"{RESULTS}/tuning/{{code}}.orbitals.npz",
     log:
         f"{LOGS}/tune_omega/{{code}}.log",
     benchmark:

@@ -11,4 +11,5 @@ setup_logging(sm.log[0])
 configure_threads(sm.threads)
 qm = job_qm(sm)
 tune_stage(sm.input.model, sm.output.json, qm_settings(qm), xatol=tune_xatol(qm),
-           bounds=qm["tune"]["bounds"], include_anion=qm["tune"]["include_anion"])
+           bounds=qm["tune"]["bounds"], include_anion=qm["tune"]["include_anion"],
+           out_orbitals=sm.output.orbitals)

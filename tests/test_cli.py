@@ -38,6 +38,33 @@ def test_excite_water(tmp_path, capsys):
     assert "eV" in capsys.readouterr().out
 
 
+def test_tune_saves_orbitals_and_excite_starts_from_them(tmp_path, capsys):
+    # the orbitals of the tuning run start the SCF of the same molecule turned and moved;
+    # the excitation energies are those of the cold start within the SCF tolerance (PySCF
+    # converges both to 1e-9 Eh)
+    w = tmp_path / "w.xyz"
+    w.write_text("3\nwater\nO 0 0 0.1173\nH 0 0.7572 -0.4692\nH 0 -0.7572 -0.4692\n")
+    turned = tmp_path / "t.xyz"   # turned 90° about z and moved 5 Å
+    turned.write_text("3\nwater\nO 5 0 0.1173\nH 4.2428 0 -0.4692\nH 5.7572 0 -0.4692\n")
+    orb = tmp_path / "w.npz"
+    opts = ["--basis", "sto-3g", "--grid-level", "0"]
+    assert main(["tune", str(w), *opts, "--bounds", "0.25", "0.35", "--xatol", "0.05",
+                 "--save-orbitals", str(orb)]) == 0
+    assert orb.exists()
+    run = ["excite", str(turned), "--eps-static", "4", "--eps-optical", "2", "--omega", "0.3",
+           *opts, "--states", "2", "--lebedev-order", "5"]
+    capsys.readouterr()
+    assert main([*run, "--json", str(tmp_path / "cold.json")]) == 0
+    assert "cold start" in capsys.readouterr().err
+    assert main([*run, "--start-from", str(orb), "--json", str(tmp_path / "warm.json")]) == 0
+    err = capsys.readouterr().err
+    assert "SCF start: warm from tuning of" in err and "RMSD 0.000" in err
+    cold, warm = (json.loads((tmp_path / f"{k}.json").read_text()) for k in ("cold", "warm"))
+    assert warm["scf_start"]["kind"] == "warm" and warm["scf_cycles"] < cold["scf_cycles"]
+    for a, b in zip(cold["states"], warm["states"]):
+        assert abs(a["energy_ev"] - b["energy_ev"]) < 1e-5
+
+
 def test_clear_errors(tmp_path, capsys):
     bad = tmp_path / "bad.xyz"
     bad.write_text("two\n\n")

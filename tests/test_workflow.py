@@ -193,6 +193,13 @@ def test_electrostatics_outputs(study):
     prot = pd.read_csv(study / "results/tables/protonation.tsv", sep="\t")
     assert set(prot.variant) == {"wt", "A_I6E"} and (prot.kind == "pigment").any()
     assert (study / "results/plots/residue_contributions.png").stat().st_size > 1000
+    # the embedded SCF started from the continuum-only ground state of the same site
+    import json
+    for v in ("wt", "A_I6E"):
+        emb = json.loads((study / f"results/{v}/pigments/A_HC4101/excited_embedded.json")
+                         .read_text())
+        assert emb["scf_start"]["kind"] == "warm"
+        assert "continuum-only result of this site" in emb["scf_start"]["source"]
 
 
 def test_coupling_outputs(study):
@@ -246,6 +253,13 @@ def test_ion_outputs(study):
     assert np.allclose(br.delta_ev, br.energy_a_ev - br.energy_b_ev, atol=2e-5)  # TSV digits
     gaps = pd.read_csv(study / "results/tables/gaps.tsv", sep="\t")
     assert set(gaps.functional) == {"screened", "unscreened"} and gaps.site_eps.any()
+    # each point of the gap check after the first starts from the one before (neutral and ions)
+    import json
+    starts = [json.loads((study / f"results/qm_cache/{h}.ions.json").read_text())["scf"]
+              for h in dict.fromkeys(gaps.qm_hash)]
+    assert len(starts) >= 3 and all(s["neutral"]["start"]["source"] == "the previous point"
+                                    and s["cation"]["start"]["source"] == "given"
+                                    for s in starts[1:])
     g1 = gaps[gaps.eps_static == 1.0].set_index("functional")
     assert g1.loc["screened", "gap_orbital_ev"] == g1.loc["unscreened", "gap_orbital_ev"]
     for name in ("ion_ladder", "gaps"):
@@ -350,6 +364,9 @@ def test_tuning_is_not_redone_for_continuum_or_run_only_keys(root, tmp_path):
     (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     p = _snakemake(root, tmp_path, "results/tuning/HC4.json")
     assert p.returncode == 0, p.stderr[-3000:]
+    # the neutral's orbitals at the tuned ω are kept for the sites' warm starts
+    with np.load(tmp_path / "results/tuning/HC4.orbitals.npz") as z:
+        assert "A_HC4101" in str(z["source"]) and z["mo_coeff"].shape[0] == len(z["elements"])
     cfg["qm"].update(pcm_method="C-PCM", threads=2, max_memory_mb=3000, tda=False)
     (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     assert _planned(_snakemake(root, tmp_path, "-n", "results/tuning/HC4.json")) == {}

@@ -139,7 +139,18 @@ def cmd_excite(args):
     if args.point_charges:
         from ..qm.embedding import read_point_charges
         charges = read_point_charges(args.point_charges, scale=args.charge_scale)
-    res = excite(el, xyz, args.charge, args.multiplicity - 1, s, log=log, charges=charges)
+    dm0 = start = None
+    if args.start_from:
+        from ..qm.scf import build_molecule, warm_density
+        mol = build_molecule(el, xyz, args.charge, args.multiplicity - 1, s.basis)
+        dm0, start = warm_density(mol, args.start_from, el, xyz, s.basis)
+        print(f"SCF start: {start['kind']}"
+              + (f" from {start['source']} (RMSD {start['rmsd_A']:.3f} Å)"
+                 if start["kind"] == "warm" else f" ({start['reason']})"), file=sys.stderr)
+    res = excite(el, xyz, args.charge, args.multiplicity - 1, s, log=log, charges=charges,
+                 dm0=dm0, start=start)
+    print(f"SCF: {res['scf_cycles']} cycles ({res['scf_start']['kind']} start), "
+          f"{res['timings_s']['scf']:.1f} s", file=sys.stderr)
     if tuned:
         res["tuning"] = tuned
     for st in res["states"]:
@@ -199,7 +210,13 @@ def cmd_tune(args):
     log = (lambda m: print(m, file=sys.stderr)) if args.verbose else None
     xatol = args.xatol if args.xatol is not None else preset(args.preset)["tune_xatol"]
     res = tune_omega(el, xyz, args.charge, args.multiplicity - 1, s, bounds=tuple(args.bounds),
-                     xatol=xatol, include_anion=args.anion, log=log)
+                     xatol=xatol, include_anion=args.anion, log=log,
+                     keep_orbitals=bool(args.save_orbitals))
+    if args.save_orbitals:
+        from ..qm.scf import save_orbitals
+        w, neutral = res.pop("_neutral")
+        save_orbitals(args.save_orbitals, neutral, el, xyz, s.basis,
+                      f"tuning of {args.xyz} (omega {w:.4f} bohr^-1)")
     for r in res["evaluations"]:
         print(f"omega={r['omega_bohr_inv']:.4f}  J^2={r['j2_ev2']:.6f} eV^2  IP={r['ip_ev']:.4f}"
               f"  -HOMO={-r['homo_ev']:.4f}")
@@ -318,6 +335,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_environment)
     p = add("excite", "one SRSH-PCM excited-state calculation")
     _qm_args(p)
+    p.add_argument("--start-from", metavar="ORBITALS.npz",
+                   help="start the SCF from orbitals saved by `tune --save-orbitals` for the "
+                        "same atoms in the same order (any orientation; cold start, with the "
+                        "reason, when they do not fit)")
     p.set_defaults(func=cmd_excite)
     p = add("tune", "optimal tuning of ω (gas phase)")
     _qm_args(p, excite=False)
@@ -329,6 +350,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="ω tolerance in bohr⁻¹ (default: the preset's)")
     p.add_argument("--anion", action="store_true", default=tune["include_anion"],
                    help="J² with the anion term")
+    p.add_argument("--save-orbitals", metavar="ORBITALS.npz",
+                   help="keep the neutral's orbitals at the tuned ω (warm start of `excite "
+                        "--start-from` on other copies or geometries of this molecule)")
     p.set_defaults(func=cmd_tune)
     p = add("electrostatics", "first-order electrostatic shift of every pigment, by residue")
     el = default("electrostatics")

@@ -30,7 +30,7 @@ from .stock import stock_response
 def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
            log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False,
            x0=None, keep_amplitudes=False, charges=None, keep_response=False,
-           relaxed=False):
+           relaxed=False, start=None):
     """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
 
     band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
@@ -39,7 +39,8 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
     core Hamiltonian. keep_response: return the orbitals and the TDA amplitudes (closed-shell
     fast path) as ``_response`` for difference and transition densities; with relaxed, also the
     relaxed difference density (:mod:`siteshift.qm.relaxed`) of every state with a band name and
-    of the lowest state (the site tables' S1).
+    of the lowest state (the site tables' S1). start: how dm0 was chosen (a record kept in the
+    result as ``scf_start``; :func:`siteshift.qm.scf.warm_density`).
     """
     settings = settings or ExciteSettings()
     settings.check()
@@ -93,6 +94,7 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         "converged": bool(mf.converged),
         "scf_step": step,
         "scf_cycles": cycles,
+        "scf_start": start or {"kind": "warm" if dm0 is not None else "cold"},
         "homo_ev": float(homo),
         "lumo_ev": float(lumo),
         "functional": functional.as_dict(),

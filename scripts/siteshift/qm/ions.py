@@ -67,15 +67,17 @@ def share_fitted_tensors(mf, fitted):
 
 def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
            functional: SRSH | None = None, charges=None, log=None, dm0=None,
-           fit_charges=True) -> dict:
+           fit_charges=True, starts=None, start=None) -> dict:
     """Neutral, cation and anion SCFs of one molecule; a JSON-ready dictionary (energies in eV
     unless named otherwise).
 
     settings: basis, grids, PCM and ε_static (the continuum of all three states; 1 = gas phase)
     and the functional (its screening ε from settings.screen) unless ``functional`` is given.
     charges: embedding charges (:class:`siteshift.qm.embedding.PointCharges`) in every state.
-    dm0: the neutral's starting density (e.g. a site calculation's); each ion starts from the
-    neutral's converged density.
+    dm0: the neutral's starting density (e.g. a site calculation's), described by the record
+    ``start`` (kept as ``scf.neutral.start``); each ion starts from the neutral's converged
+    density unless ``starts`` gives it one ({"cation": dm, "anion": dm}, e.g. the same ion at
+    a neighbouring ε). Every state's converged density is returned as ``_dms``.
     """
     settings = settings or ExciteSettings()
     settings.check()
@@ -89,6 +91,8 @@ def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
            "spin": int(spin), "ion_spin": ion_spin(spin),
            "embedding_charges": 0 if charges is None else len(charges), "scf": {}}
     energies, esp, dm_neutral, fitted = {}, {}, None, None
+    starts = dict(starts or {})
+    out["_dms"] = {}
     for name, dq in STATES.items():
         q = int(charge) + dq
         s = int(spin) if dq == 0 else ion_spin(spin)
@@ -100,10 +104,16 @@ def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         mf = make_scf(mol, settings, functional, charges=charges)
         if dq != 0:
             share_fitted_tensors(mf, fitted)
-        start = dm0 if dq == 0 else dm_neutral
-        if start is not None and s == 0 and np.ndim(start) == 3:   # open-shell → closed-shell
-            start = np.asarray(start[0]) + np.asarray(start[1])
-        mf, step, cycles = run_scf(mf, dm0=start, log=lambda m, n=name: log(f"{n}: {m}"))
+        if starts.get(name) is not None:
+            begin, how = starts[name], {"kind": "warm", "source": "given"}
+        elif dq == 0:
+            begin = dm0
+            how = start or {"kind": "warm" if dm0 is not None else "cold"}
+        else:
+            begin, how = dm_neutral, {"kind": "warm", "source": "the neutral's density"}
+        if begin is not None and s == 0 and np.ndim(begin) == 3:   # open-shell → closed-shell
+            begin = np.asarray(begin[0]) + np.asarray(begin[1])
+        mf, step, cycles = run_scf(mf, dm0=begin, log=lambda m, n=name: log(f"{n}: {m}"))
         dt = time.perf_counter() - t0
         if dq == 0:
             fitted = getattr(mf, "with_df", None)
@@ -111,12 +121,13 @@ def ionize(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
             homo, lumo = frontier_spin_orbitals_ev(mf)
             out["_dm"] = dm_neutral
         energies[name] = float(mf.e_tot)
+        out["_dms"][name] = mf.make_rdm1()
         s2 = None
         if s > 0:
             s2 = float(mf.spin_square()[0])
         out["scf"][name] = {"charge": q, "spin": s, "step": step, "cycles": int(cycles),
                             "time_s": round(dt, 3), "energy_hartree": float(mf.e_tot),
-                            "s_squared": s2}
+                            "s_squared": s2, "start": how}
         log(f"{name}: E = {mf.e_tot:.8f} Eh (charge {q}, 2S {s}, {cycles} cycles, "
             f"{dt:.1f} s{'' if s2 is None else f', <S^2> {s2:.3f}'})")
         if fit_charges:

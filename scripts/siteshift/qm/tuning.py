@@ -14,13 +14,15 @@ from .scf import build_molecule, frontier_ev, make_scf, run_scf
 from .settings import ExciteSettings
 
 def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
-               bounds=None, xatol=None, include_anion=None, log=None):
+               bounds=None, xatol=None, include_anion=None, log=None, keep_orbitals=False):
     """Gas-phase optimal tuning of ω: minimise J²(ω) = Σ_i (ε_HOMO(N+i) + IP(N+i))².
 
     Stein, Kronik, Baer, JACS 131, 2818 (2009) (i = 0); Stein et al., PRL 105, 266802 (2010)
     (i = 0, 1 with the anion). α is held fixed and α+β = 1 (gas phase). Returns a dictionary with
     the tuned ω (bohr⁻¹), J at the optimum (eV), and every evaluation of the curve. bounds, xatol
     and include_anion default to the study config's (`qm.tune`, the full preset's tolerance).
+    keep_orbitals: also return the neutral's converged SCF at the evaluation nearest the tuned
+    ω as ``_neutral`` = (ω, SCF object) (warm starts of the study's site calculations).
     """
     from scipy.optimize import minimize_scalar
 
@@ -39,6 +41,7 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
                             settings.basis, settings.max_memory_mb) if include_anion else None)
     dms = {}
     curve = []
+    neutrals = {}
 
     def energy(mol, key, omega):
         mf = make_scf(mol, settings, SRSH(settings.alpha, omega, 1.0), solvated=False)
@@ -49,6 +52,8 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
     def j2(omega):
         t = time.perf_counter()
         n = energy(mol0, "n", omega)
+        if keep_orbitals:
+            neutrals[float(omega)] = n
         c = energy(mol_c, "c", omega)
         ip = (c.e_tot - n.e_tot) * HARTREE2EV
         homo_n = frontier_ev(n)[0]
@@ -71,7 +76,7 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
     res = minimize_scalar(j2, bounds=bounds, method="bounded", options={"xatol": xatol})
     best = min(curve, key=lambda r: r["j2_ev2"])
     edge = min(abs(best["omega_bohr_inv"] - b) for b in bounds)
-    return {
+    out = {
         "omega_bohr_inv": float(res.x),
         "j_ev": float(np.sqrt(res.fun)),
         "alpha": settings.alpha,
@@ -86,3 +91,7 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
         "time_s": round(time.perf_counter() - t0, 2),
         "versions": {"python": platform.python_version(), "pyscf": pyscf.__version__},
     }
+    if keep_orbitals:
+        w = min(neutrals, key=lambda w: abs(w - res.x))
+        out["_neutral"] = (w, neutrals[w])
+    return out

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import logging
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -36,7 +37,7 @@ from ..environment.charges import (ChargeSettings, assign_charges, residue_total
                                    site_charges)
 from ..qm.embedding import PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
-from .stages import cached_excite, site_settings, study_omega
+from .stages import cached_excite, density_path, site_settings, site_start, study_omega
 
 log = logging.getLogger("siteshift")
 ELECTRO = default("electrostatics")
@@ -60,13 +61,17 @@ def fit_pigment_charges_stage(model_json, out_json, qm: dict, tuning_json=None):
     t0 = time.perf_counter()
     mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                          rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
-    mf, step, cycles = run_scf(make_scf(mol, s), log=log.info)
+    # the tuning job converged this very SCF (gas phase, ω within its tolerance) on this type
+    dm0, how = site_start(rec, s, tuning_json)()
+    log.info("%s: SCF start %s", rec["ccd_code"], how.get("source", how.get("reason")))
+    mf, step, cycles = run_scf(make_scf(mol, s), dm0=dm0, log=log.info)
     fit = esp_charges(mf, rec["elements"], rec["coords_A"], rec["charge"])
     out = {"ccd_code": rec["ccd_code"], "fitted_on": rec["pigment_id"], "names": rec["names"],
            "elements": rec["elements"], **fit, "total_charge_e": rec["charge"],
            "basis": s.basis, "functional": s.functional.as_dict(), "medium": "gas phase",
            "scheme": "Merz-Kollman-Singh ESP fit (shells 1.4-2.0 x vdW radii)",
-           "scf_cycles": cycles, "time_s": round(time.perf_counter() - t0, 2)}
+           "scf_cycles": cycles, "scf_start": how,
+           "time_s": round(time.perf_counter() - t0, 2)}
     io.write_json(out_json, out)
     log.info("%s: ESP charges on %d atoms (%d points, RMS %.2e Eh/e); dipole %s D (QM %s D)",
              rec["ccd_code"], len(fit["charges"]), fit["n_points"], fit["rms_hartree"],
@@ -154,9 +159,15 @@ def embedded_stage(model_json, environment_json, charges_tsv, out_json, qm: dict
     charges = pd.read_csv(charges_tsv, sep="\t", keep_default_na=False)
     pc, notes = site_point_charges(charges, rec, el, diel)
     ref, h_ref, arrays = cached_excite(rec, settings, cache_dir, relaxed=True,
-                                       label=f"{rec['pigment_id']} (reference)")
-    emb, h_emb, _ = cached_excite(rec, settings, cache_dir, charges=pc,
-                                  label=f"{rec['pigment_id']} (embedded)")
+                                       label=f"{rec['pigment_id']} (reference)",
+                                       start=site_start(rec, settings, tuning_json))
+    # the embedded SCF starts from the continuum-only ground state of the same site
+    emb, h_emb, _ = cached_excite(
+        rec, settings, cache_dir, charges=pc, label=f"{rec['pigment_id']} (embedded)",
+        start=site_start(rec, settings, tuning_json,
+                         density=density_path(Path(cache_dir) / f"{h_ref}.json")
+                         if cache_dir else None,
+                         source=f"the continuum-only result of this site ({h_ref})"))
     mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                          rec["multiplicity"] - 1, settings.basis, settings.max_memory_mb)
     t0 = time.perf_counter()

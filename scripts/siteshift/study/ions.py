@@ -21,7 +21,8 @@ from ..base import io
 from ..base.defaults import fill
 from ..interactions.ionpairs import coulomb_eps, ion_pair, mirror, same_branch_pairs
 from ..qm.ions import ionize, unscreened
-from .stages import _hash_lock, qm_key, site_settings
+from ..qm.scf import describe_start
+from .stages import _hash_lock, density_path, qm_key, site_settings, site_start
 
 log = logging.getLogger("siteshift")
 
@@ -30,12 +31,19 @@ SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "mode", "eps_static", "long
                 "ea_deltascf_ev", "ea_orbital_ev", "ea_orbital_minus_deltascf_ev",
                 "gap_deltascf_ev", "gap_orbital_ev", "gap_orbital_minus_deltascf_ev",
                 "s2_cation", "s2_anion", "scf_s_neutral", "scf_s_cation", "scf_s_anion",
-                "cycles_neutral", "cycles_cation", "cycles_anion", "qm_hash"]
+                "cycles_neutral", "cycles_cation", "cycles_anion", "start_neutral", "qm_hash"]
+
 
 
 def cached_ionize(rec: dict, settings, cache_dir=None, charges=None, functional=None,
-                  label=None) -> tuple[dict, str]:
-    """(result, hash) of one site's ion calculation, computed or reused from the cache."""
+                  label=None, start=None, starts=None) -> tuple[dict, str]:
+    """(result, hash) of one site's ion calculation, computed or reused from the cache.
+
+    start: a callable giving (dm0, record) of the neutral's SCF start
+    (:func:`siteshift.study.stages.site_start`); starts: starting densities of the ions
+    ({"cation": dm, "anion": dm}, e.g. :func:`ion_densities` of a neighbouring point). Neither
+    is part of the cache key. The converged densities of the three states are kept beside
+    the result (:func:`ion_densities`)."""
     label = label or rec["pigment_id"]
     functional = functional or settings.functional
     key = qm_key(rec, settings, charges)
@@ -48,18 +56,50 @@ def cached_ionize(rec: dict, settings, cache_dir=None, charges=None, functional=
             out = io.read_json(cached)
             out["cache"] = "reused"
             return out, h
+        dm0, how = start() if start is not None else (None, None)
         log.info("%s: cation and anion, eps_static=%.3f, alpha+beta=%.4f, omega=%.4f%s "
-                 "(hash %s)", label, settings.eps_static, functional.long_range_fraction,
-                 functional.omega, "" if charges is None else f", {len(charges)} charges", h)
+                 "(hash %s); neutral starts %s", label, settings.eps_static,
+                 functional.long_range_fraction, functional.omega,
+                 "" if charges is None else f", {len(charges)} charges", h,
+                 f"warm from {how['source']}" if how and how["kind"] == "warm" else "cold")
         out = ionize(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      settings, functional=functional, charges=charges,
-                     log=lambda m: log.info("%s %s", label, m))
+                     log=lambda m: log.info("%s %s", label, m), dm0=dm0, start=how,
+                     starts=starts)
         out.pop("_dm", None)
+        dms = out.pop("_dms", {})
         out["cache"] = "computed"
         if cached is not None:
             cached.parent.mkdir(parents=True, exist_ok=True)
-            io.write_json(cached, out)
+            with io.atomic_target(ion_density_path(cached), suffix=".npz") as tmp:
+                np.savez(tmp, **{k: np.asarray(v) for k, v in dms.items()})
+            io.write_json(cached, out)   # last: the entry counts once its JSON exists
     return out, h
+
+
+def ion_density_path(cached_json):
+    """Where the converged densities of a cached ion result are kept (.npz)."""
+    return Path(str(cached_json).removesuffix(".ions.json") + ".ions.dms.npz")
+
+
+def ion_densities(cache_dir, h) -> dict | None:
+    """{"neutral", "cation", "anion": AO density} of a cached ion result, or None."""
+    if not cache_dir:
+        return None
+    path = ion_density_path(Path(cache_dir) / f"{h}.ions.json")
+    if not path.exists():
+        return None
+    with np.load(path) as z:
+        return {k: z[k] for k in z.files}
+
+
+def _chain(rec, settings, tuning_json, previous):
+    """The start of the next point of a scan over one geometry: the previous point's densities
+    (neutral and ions) when it left them, else the tuning orbitals."""
+    if previous:
+        return (lambda: (previous["neutral"], {"kind": "warm", "source": "the previous point"}),
+                {k: v for k, v in previous.items() if k != "neutral"})
+    return site_start(rec, settings, tuning_json), None
 
 
 def ions_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
@@ -78,7 +118,13 @@ def ions_stage(model_json, environment_json, out_json, qm: dict, tuning_json=Non
         charges = pd.read_csv(charges_tsv, sep="\t", keep_default_na=False)
         pc, _notes = site_point_charges(charges, rec, el, diel)
         mode = "embedded"
-    out, h = cached_ionize(rec, settings, cache_dir, charges=pc)
+    # the neutral is the site's ground state (same ε, functional and charges): start from the
+    # site calculation's density when it is already in the cache, else from the tuning orbitals
+    site_h = io.stable_hash(qm_key(rec, settings, pc))
+    out, h = cached_ionize(rec, settings, cache_dir, charges=pc, start=site_start(
+        rec, settings, tuning_json,
+        density=density_path(Path(cache_dir) / f"{site_h}.json") if cache_dir else None,
+        source=f"the site's {mode} ground state ({site_h})"))
     out.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                mode=mode, qm_hash=h, coords_A=rec["coords_A"],
                dielectric={"eps_static": diel["eps_static"],
@@ -96,7 +142,7 @@ def gap_stage(model_json, environment_json, out_json, qm: dict, eps_points=(1.0,
     diel = io.read_json(environment_json)["dielectric"]
     site_eps = float(diel["eps_static"])
     points = sorted({float(e) for e in eps_points} | {site_eps})
-    rows = []
+    rows, previous = [], None
     for k, eps in enumerate(points):
         settings = site_settings(rec, {**diel, "eps_static": eps,
                                        "eps_optical": min(float(diel["eps_optical"]), eps)},
@@ -107,12 +153,17 @@ def gap_stage(model_json, environment_json, out_json, qm: dict, eps_points=(1.0,
         for kind, fn in kinds:
             log.info("gap check %s point %d/%d: eps_static %.2f, %s", rec["ccd_code"], k + 1,
                      len(points), eps, kind)
+            start, starts = _chain(rec, settings, tuning_json, previous)
             res, h = cached_ionize(rec, settings, cache_dir, functional=fn,
-                                   label=f"{rec['pigment_id']} gap check")
+                                   label=f"{rec['pigment_id']} gap check", start=start,
+                                   starts=starts)
+            previous = ion_densities(cache_dir, h)
             row = {"ccd_code": rec["ccd_code"], "pigment_id": rec["pigment_id"],
                    "eps_static": eps, "site_eps": abs(eps - site_eps) < 1e-12,
                    "functional": kind, "long_range_fraction": fn.long_range_fraction,
-                   "omega_bohr_inv": fn.omega, "qm_hash": h}
+                   "omega_bohr_inv": fn.omega, "qm_hash": h,
+                   "scf_cycles": sum(v["cycles"] for v in res["scf"].values()),
+                   "start_neutral": describe_start(res["scf"]["neutral"].get("start"))}
             row.update({key: res[key] for key in (
                 "ip_deltascf_ev", "ip_orbital_ev", "ea_deltascf_ev", "ea_orbital_ev",
                 "gap_deltascf_ev", "gap_orbital_ev", "gap_orbital_minus_deltascf_ev")})
@@ -132,14 +183,17 @@ def ion_sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_jso
     rec = io.read_json(model_json)
     points, omega = [], None
     grid = sorted(float(e) for e in eps_grid)
+    previous = None
     for k, eps in enumerate(grid):
         log.info("%s ion sweep point %d/%d: eps_static %.2f", rec["pigment_id"], k + 1,
                  len(grid), eps)
         settings = site_settings(rec, {"eps_static": eps, "eps_optical": min(float(n2), eps)},
                                  qm, tuning_json)
         omega = settings.omega
-        res, h = cached_ionize(rec, settings, cache_dir,
+        start, starts = _chain(rec, settings, tuning_json, previous)
+        res, h = cached_ionize(rec, settings, cache_dir, start=start, starts=starts,
                                label=f"{rec['pigment_id']} at eps {eps:g}")
+        previous = ion_densities(cache_dir, h)
         points.append({"eps_static": eps, "eps_optical": settings.eps_optical, "qm_hash": h,
                        **{key: res[key] for key in (
                            "ip_deltascf_ev", "ea_deltascf_ev", "ip_orbital_ev", "ea_orbital_ev",
@@ -194,7 +248,8 @@ def site_rows(ion_files) -> pd.DataFrame:
                                                                      "eps_static")},
             "s2_cation": scf["cation"]["s_squared"], "s2_anion": scf["anion"]["s_squared"],
             **{f"scf_s_{k}": scf[k]["time_s"] for k in scf},
-            **{f"cycles_{k}": scf[k]["cycles"] for k in scf}})
+            **{f"cycles_{k}": scf[k]["cycles"] for k in scf},
+            "start_neutral": describe_start(scf["neutral"].get("start"))})
     return pd.DataFrame(rows, columns=SITE_COLUMNS)
 
 

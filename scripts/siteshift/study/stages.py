@@ -16,6 +16,7 @@ from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.bands import assign_bands
 from ..qm.excite import excite
+from ..qm.scf import build_molecule, save_orbitals, warm_density
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
 from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
@@ -186,14 +187,22 @@ def environment_stage(structure, model_json, out_json, settings: EnvironmentSett
 
 
 def tune_stage(model_json, out_json, settings: ExciteSettings, xatol=None, bounds=None,
-               include_anion=None):
+               include_anion=None, out_orbitals=None):
+    """Gas-phase optimal tuning of ω for one pigment type; out_orbitals: where the neutral's
+    orbitals at the tuned ω are kept for the warm starts of the sites (:func:`tuning_orbitals`).
+    """
     rec = io.read_json(model_json)
     log.info("tuning omega for %s on %s (%s, alpha=%.3f, gas phase)", rec["ccd_code"],
              rec["pigment_id"], settings.basis, settings.alpha)
     res = tune_omega(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      settings, bounds=bounds, xatol=xatol, include_anion=include_anion,
-                     log=log.info)
+                     log=log.info, keep_orbitals=out_orbitals is not None)
     res.update(ccd_code=rec["ccd_code"], tuned_on=rec["pigment_id"])
+    if out_orbitals is not None:
+        w, neutral = res.pop("_neutral")
+        save_orbitals(out_orbitals, neutral, rec["elements"], rec["coords_A"], settings.basis,
+                      f"gas-phase tuning of {rec['ccd_code']} on {rec['pigment_id']} "
+                      f"(omega {w:.4f} bohr^-1)")
     if res["at_bound"]:
         log.warning("tuned omega %.4f lies at the search bound %s; widen qm.tune.bounds",
                     res["omega_bohr_inv"], res["bounds_bohr_inv"])
@@ -274,17 +283,42 @@ def response_path(cached_json):
     return Path(cached_json).with_suffix(".response.npz")
 
 
+def tuning_orbitals(tuning_json):
+    """Where the tuning job keeps the neutral's orbitals (None without tuning)."""
+    return Path(tuning_json).with_suffix(".orbitals.npz") if tuning_json else None
+
+
+def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=None,
+               source=None):
+    """A callable giving (dm0, record) of a site's SCF: ``density`` (an AO density of this very
+    geometry and basis, e.g. the site's continuum-only ground state, named by ``source``) when
+    its file exists, else the tuning job's gas-phase orbitals carried to the site's geometry
+    (:func:`siteshift.qm.scf.warm_density`), else a cold start. Evaluated only when the SCF
+    runs (a cached result needs none)."""
+    def start():
+        if density is not None and Path(density).exists():
+            return np.load(density), {"kind": "warm", "source": source or str(density),
+                                      "rmsd_A": 0.0}
+        mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
+                             rec["multiplicity"] - 1, settings.basis, settings.max_memory_mb)
+        return warm_density(mol, tuning_orbitals(tuning_json), rec["elements"], rec["coords_A"],
+                            settings.basis)
+    return start
+
+
 def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=None,
-                  relaxed=False, label=None):
+                  relaxed=False, label=None, start=None):
     """(result, hash, response arrays or None) of one QM job, computed or reused from the cache.
 
     relaxed: the response arrays must hold the relaxed difference densities of the named bands
-    (a cached result without them is recomputed, starting from its ground-state density)."""
+    (a cached result without them is recomputed, starting from its ground-state density).
+    start: a callable giving (dm0, record) of the SCF's start (:func:`site_start`); the start
+    is not part of the cache key (it changes the path, not the result)."""
     label = label or rec["pigment_id"]
     h = io.stable_hash(qm_key(rec, settings, charges))
     cached = Path(cache_dir) / f"{h}.json" if cache_dir else None
     with _hash_lock(cached):
-        dm0 = None
+        dm0, how = None, None
         if cached is not None and cached.exists():
             arrays = load_response(cached)
             if not relaxed or (arrays is not None and
@@ -299,6 +333,14 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
             log.info("%s: cached result %s lacks relaxed densities; recomputing", label, h)
             if density_path(cached).exists():
                 dm0 = np.load(density_path(cached))
+                how = {"kind": "warm", "source": f"cached result {h} (without relaxed densities)",
+                       "rmsd_A": 0.0}
+        if dm0 is None and start is not None:
+            dm0, how = start()
+        how = how or {"kind": "cold", "reason": "no start given"}
+        log.info("%s: SCF start %s%s", label, how["kind"],
+                 f" from {how['source']}" if how["kind"] == "warm" else
+                 f" ({how.get('reason')})")
         log.info("%s: SRSH-PCM %s, eps_static=%.3f eps_optical=%.3f screen=%s omega=%.4f "
                  "alpha=%.2f, %d states%s (hash %s)", label, settings.basis,
                  settings.eps_static, settings.eps_optical, settings.screen, settings.omega,
@@ -307,7 +349,7 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
         result = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                         settings, log=log.info, band_axes=rec["band_axes"] or None,
                         keep_density=True, dm0=dm0, charges=charges, keep_response=True,
-                        relaxed=relaxed)
+                        relaxed=relaxed, start=how)
         result["cache"] = "computed"
         dm = result.pop("_dm")
         arrays = result.pop("_response", None)
@@ -337,7 +379,8 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
     rec = io.read_json(model_json)
     diel = io.read_json(environment_json)["dielectric"]
     settings = site_settings(rec, diel, qm, tuning_json)
-    result, h, _arrays = cached_excite(rec, settings, cache_dir, relaxed=relaxed)
+    result, h, _arrays = cached_excite(rec, settings, cache_dir, relaxed=relaxed,
+                                       start=site_start(rec, settings, tuning_json))
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                   qm_hash=h, dielectric_source=diel["source"], mode="continuum",
                   tuning=str(tuning_json) if tuning_json else "fixed")

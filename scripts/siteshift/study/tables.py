@@ -12,6 +12,7 @@ from ..base import io
 from ..base.defaults import default
 from ..base.io import read_json
 from ..base.units import EV2CM1, NM_EV
+from ..qm.scf import describe_start
 from ..structures.library import load_library
 from ..structures.reading import read_structure
 
@@ -20,7 +21,7 @@ log = logging.getLogger("siteshift")
 SITE_COLUMNS = ["variant", "mode", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
                 "wavelength_nm", "oscillator_strength", "transition_dipole_debye",
                 "eps_static", "eps_optical", "eps_screen", "alpha", "omega_bohr_inv", "basis",
-                "response", "solvation", "qm_hash"]
+                "response", "solvation", "scf_cycles", "scf_start", "qm_hash"]
 
 
 #: A target curve varying by less than this over the scanned ε is reported as flat: SCF runs
@@ -48,6 +49,8 @@ def site_rows(result: dict) -> list:
             "eps_screen": result["eps_screen"], "alpha": f["alpha"],
             "omega_bohr_inv": f["omega_bohr_inv"], "basis": result["basis"],
             "response": result["response"]["method"], "solvation": result["solvation"],
+            "scf_cycles": result.get("scf_cycles"),
+            "scf_start": describe_start(result.get("scf_start")),
             "qm_hash": result.get("qm_hash")})
     return rows
 
