@@ -310,3 +310,23 @@ def test_davidson_warm_start_from_previous_amplitudes(ch2o_exact):
     core = {}
     e2, *_ = fast_response(mf, s_core, stats=core, x0=cold["xs"])
     assert core["warm_start"] and np.max(np.abs(e2 - e0)) * HARTREE2EV < 1e-3
+
+
+def test_pcm_integral_table_equals_pyscf_integrals(monkeypatch):
+    # Reference: PySCF's PCM._get_v and _get_vmat, which recompute (μν|g) block by block in
+    # every call. The packed table kept in memory must give the same surface potentials (for
+    # non-symmetric densities too: the coupled-perturbed equations pass them) and the same
+    # reaction-field matrices, to round-off; without room for it PySCF's path is taken.
+    import siteshift.qm.pcm as sp
+    mf, _s = _ch2o("def2-svp", df_storage="float64", pcm_fit=False)
+    sol = mf.with_solvent
+    rng = np.random.default_rng(5)
+    d = rng.standard_normal((2, mf.mol.nao, mf.mol.nao))
+    q = rng.standard_normal((2, sol.surface["grid_coords"].shape[0]))
+    assert sol._table() is not None
+    assert np.max(np.abs(sol._get_v(d) - pcm.PCM._get_v(sol, d))) < 1e-11
+    assert np.max(np.abs(sol._get_vmat(q) - pcm.PCM._get_vmat(sol, q))) < 1e-11
+    monkeypatch.setattr(sp, "PCM_TABLE_MAX_MB", 0.0)
+    sol._t_key = None
+    assert sol._table() is None
+    assert np.max(np.abs(sol._get_v(d) - pcm.PCM._get_v(sol, d))) < 1e-14
