@@ -120,6 +120,17 @@ def tuning_input(wildcards):
     return f"{RESULTS}/tuning/{code_of(wildcards.variant, wildcards.pigment)}.json"
 
 
+def same_site_result(wildcards):
+    """The same pigment's result in the reference variant, whose orbitals start a variant's
+    site SCF (qm.warm_start: reference); nothing for the reference itself, for a pigment the
+    reference lacks, or with qm.warm_start: tuning."""
+    if QM.get("warm_start", "reference") != "reference" or wildcards.variant == REFERENCE:
+        return []
+    if wildcards.pigment not in pigments_of(REFERENCE):
+        return []
+    return f"{RESULTS}/{REFERENCE}/pigments/{wildcards.pigment}/excited_states.json"
+
+
 def all_excitations(wildcards):
     return [
         f"{RESULTS}/{v}/pigments/{p}/excited_states.json"
@@ -348,6 +359,14 @@ def ion_charges(wildcards):
     if ELECTRO["enabled"]:
         return f"{RESULTS}/{wildcards.variant}/charges.tsv"
     return []
+
+
+def ion_site_start(wildcards):
+    """The site calculation whose ground state is the ions' neutral (same ε, functional and
+    charges): the embedded one when electrostatics is on, else the continuum-only one. Its
+    density in the QM cache starts the neutral's SCF."""
+    name = "excited_embedded.json" if ELECTRO["enabled"] else "excited_states.json"
+    return f"{RESULTS}/{wildcards.variant}/pigments/{wildcards.pigment}/{name}"
 
 
 def all_ions(wildcards):

@@ -26,6 +26,7 @@ rule excite_pigment:
         model=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/qm_model.json",
         environment=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/environment.json",
         tuning=tuning_input,
+        same_site=same_site_result,
     output:
         json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/excited_states.json",
     log:

@@ -8,6 +8,8 @@ rule ionize_pigment:
         environment=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/environment.json",
         tuning=tuning_input,
         charges=ion_charges,
+        # the neutral is this site's ground state: its SCF starts from the site's density
+        site=ion_site_start,
     output:
         json=f"{RESULTS}/{{variant}}/pigments/{{pigment}}/ions.json",
     log:

@@ -10,4 +10,5 @@ setup_logging(sm.log[0])
 configure_threads(sm.threads)
 excite_stage(sm.input.model, sm.input.environment, sm.output.json, job_qm(sm),
              tuning_json=sm.input.tuning or None, cache_dir=sm.params.cache,
-             variant=sm.wildcards.variant, relaxed=sm.params.relaxed)
+             variant=sm.wildcards.variant, relaxed=sm.params.relaxed,
+             same_site=sm.input.get("same_site") or None)

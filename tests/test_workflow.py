@@ -168,6 +168,13 @@ def test_outputs_for_inspection(study):
     w = json.loads((study / "results/wt/pigments/B_HC4101/excited_states.json").read_text())
     assert m["qm_hash"] == w["qm_hash"]
     assert {m["cache"], w["cache"]} == {"computed", "reused"}
+    # qm.warm_start: reference — the mutant's site started from the reference's same site
+    # (ω is fixed here, so the reference's own sites had no tuning orbitals and started cold)
+    a = json.loads((study / "results/A_I6E/pigments/A_HC4101/excited_states.json").read_text())
+    assert a["scf_start"]["kind"] == "warm" and "of variant wt" in a["scf_start"]["source"]
+    r = json.loads((study / "results/wt/pigments/A_HC4101/excited_states.json").read_text())
+    assert r["scf_start"]["kind"] == "cold" and "no saved orbitals" in r["scf_start"]["reason"]
+    assert a["scf_cycles"] < r["scf_cycles"]
 
 
 def test_electrostatics_outputs(study):

@@ -96,4 +96,4 @@ def preset(name: str) -> dict:
 #: `qm` config keys that change how a QM job runs, not its numbers: left out of the rules'
 #: params (rules/common.smk), read from the config by siteshift.study.stages.job_qm, and (but
 #: threads, no ExciteSettings field) out of the QM cache key
-RUN_ONLY_QM_KEYS = ("threads", "max_memory_mb")
+RUN_ONLY_QM_KEYS = ("threads", "max_memory_mb", "warm_start")

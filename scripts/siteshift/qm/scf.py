@@ -457,20 +457,28 @@ def save_orbitals(path, mf, elements, coords_ang, basis, source):
 
 
 def warm_density(mol, orbitals_path, elements, coords_ang, basis):
-    """(density or None, record) of a warm start from saved orbitals (:func:`save_orbitals`).
-
-    Starts cold (None, with the reason in the record) when the file is absent, the atoms or
-    the basis differ, or the geometry differs by more than ``WARM_MAX_RMSD_A`` RMS after
-    superposition (:func:`superpose`: a copy elsewhere in the structure, turned, is the same
-    conformation); the record says
-    what was used: {"kind": "warm" | "cold", "source", "rmsd_A", "reason"}.
-    """
+    """(density or None, record) of a warm start from saved orbitals (:func:`save_orbitals`);
+    see :func:`carried_start`. A missing file is a cold start with that reason."""
     from pathlib import Path
     if orbitals_path is None or not Path(orbitals_path).exists():
         return None, {"kind": "cold", "reason": "no saved orbitals"
                       if orbitals_path is None else f"{orbitals_path} absent"}
     with np.load(orbitals_path) as z:
         saved = {k: z[k] for k in z.files}
+    return carried_start(mol, saved, elements, coords_ang, basis)
+
+
+def carried_start(mol, saved: dict, elements, coords_ang, basis):
+    """(density or None, record) of a warm start of ``mol`` from orbitals converged on another
+    geometry: ``saved`` holds mo_coeff, mo_occ, and the elements, Å coordinates (coords_A) and
+    basis they were converged with, and a ``source`` line.
+
+    Starts cold (None, with the reason in the record) when the atoms or the basis differ, the
+    geometry differs by more than ``WARM_MAX_RMSD_A`` RMS after superposition
+    (:func:`superpose`: a copy elsewhere in the structure, turned, is the same conformation),
+    or the electron count does not match; the record says what was used:
+    {"kind": "warm" | "cold", "source", "rmsd_A", "reason"}.
+    """
     label = str(saved["source"])
     if [str(e).capitalize() for e in saved["elements"]] != [str(e).strip().capitalize()
                                                             for e in elements]:

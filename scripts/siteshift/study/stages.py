@@ -16,7 +16,7 @@ from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.bands import assign_bands
 from ..qm.excite import excite
-from ..qm.scf import build_molecule, save_orbitals, warm_density
+from ..qm.scf import build_molecule, carried_start, save_orbitals, warm_density
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
 from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
@@ -289,11 +289,13 @@ def tuning_orbitals(tuning_json):
 
 
 def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=None,
-               source=None):
+               source=None, same_site=None, cache_dir=None):
     """A callable giving (dm0, record) of a site's SCF: ``density`` (an AO density of this very
     geometry and basis, e.g. the site's continuum-only ground state, named by ``source``) when
-    its file exists, else the tuning job's gas-phase orbitals carried to the site's geometry
-    (:func:`siteshift.qm.scf.warm_density`), else a cold start. Evaluated only when the SCF
+    its file exists; else the orbitals of the same site computed in another variant
+    (``same_site``: that site's excited_states.json, its orbitals read from the cache), carried
+    to this geometry; else the tuning job's gas-phase orbitals carried to the site's geometry
+    (:func:`siteshift.qm.scf.warm_density`); else a cold start. Evaluated only when the SCF
     runs (a cached result needs none)."""
     def start():
         if density is not None and Path(density).exists():
@@ -301,9 +303,41 @@ def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=No
                                       "rmsd_A": 0.0}
         mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                              rec["multiplicity"] - 1, settings.basis, settings.max_memory_mb)
-        return warm_density(mol, tuning_orbitals(tuning_json), rec["elements"], rec["coords_A"],
-                            settings.basis)
+        tried = []
+        if same_site is not None:
+            saved = _site_orbitals(same_site, cache_dir)
+            if saved is not None:
+                dm, how = carried_start(mol, saved, rec["elements"], rec["coords_A"],
+                                        settings.basis)
+                if dm is not None:
+                    return dm, how
+                tried.append(f"{saved['source']}: {how['reason']}")
+        dm, how = warm_density(mol, tuning_orbitals(tuning_json), rec["elements"],
+                               rec["coords_A"], settings.basis)
+        if tried and dm is None:
+            how["reason"] = "; ".join(tried + [how["reason"]])
+        return dm, how
     return start
+
+
+def _site_orbitals(result_json, cache_dir):
+    """The converged orbitals of a computed site (its cached response arrays) with the atoms,
+    coordinates and basis they belong to, in :func:`carried_start`'s layout; None when the
+    cache does not hold them."""
+    result_json = Path(result_json)
+    if cache_dir is None or not result_json.exists():
+        return None
+    res = io.read_json(result_json)
+    arrays = load_response(Path(cache_dir) / f"{res.get('qm_hash')}.json")
+    model = result_json.parent / "qm_model.json"
+    if arrays is None or "mo_coeff" not in arrays or not model.exists():
+        return None
+    rec = io.read_json(model)
+    return {"mo_coeff": arrays["mo_coeff"], "mo_occ": arrays["mo_occ"],
+            "elements": rec["elements"], "coords_A": np.asarray(rec["coords_A"]),
+            "basis": res["basis"],
+            "source": f"{res.get('pigment_id')} of variant {res.get('variant')} "
+                      f"({res.get('qm_hash')})"}
 
 
 def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=None,
@@ -372,15 +406,19 @@ def load_response(cached):
 
 
 def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=None,
-                 cache_dir=None, variant=None, relaxed=False):
+                 cache_dir=None, variant=None, relaxed=False, same_site=None):
     """Excited states of one pigment (continuum only); results are cached by a hash of every
     QM input (:func:`qm_key`). relaxed: keep the relaxed difference densities of the named
-    bands too (the electrostatics stage decomposes shifts with them)."""
+    bands too (the electrostatics stage decomposes shifts with them). same_site: the same
+    pigment's result in the reference variant, whose orbitals start this SCF
+    (``qm.warm_start: reference``; else the tuning orbitals do)."""
     rec = io.read_json(model_json)
     diel = io.read_json(environment_json)["dielectric"]
     settings = site_settings(rec, diel, qm, tuning_json)
     result, h, _arrays = cached_excite(rec, settings, cache_dir, relaxed=relaxed,
-                                       start=site_start(rec, settings, tuning_json))
+                                       start=site_start(rec, settings, tuning_json,
+                                                        same_site=same_site,
+                                                        cache_dir=cache_dir))
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                   qm_hash=h, dielectric_source=diel["source"], mode="continuum",
                   tuning=str(tuning_json) if tuning_json else "fixed")
