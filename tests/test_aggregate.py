@@ -177,17 +177,27 @@ def test_study_summary_counts_and_reasons(tmp_path):
     tune.write_text(json.dumps({"ccd_code": "HC4", "tuned_on": "A_HC4101", "time_s": 30.0,
                                 "at_bound": True, "omega_bohr_inv": 0.5,
                                 "bounds_bohr_inv": [0.1, 0.5]}))
-    rows = summary_rows({"wt": inv}, [site, tune], codes={"HC4"})
+    # an ion whose <S^2> is far above S(S+1) = 0.75 (doublet; common practice) is flagged
+    ions = tmp_path / "wt/pigments/A_HC4101/ions.json"
+    ions.write_text(json.dumps({"variant": "wt", "pigment_id": "A_HC4101", "ccd_code": "HC4",
+                                "scf": {"neutral": {"spin": 0, "s_squared": None},
+                                        "cation": {"spin": 1, "s_squared": 0.7712},
+                                        "anion": {"spin": 1, "s_squared": 0.9831}}}))
+    rows = summary_rows({"wt": inv}, [site, tune, ions], codes={"HC4"})
     st = dict(zip(rows.pigment_id + "/" + rows.stage, rows.status))
     assert st == {"A_HC4101/inventory": "selected", "B_HC4101/inventory": "failed",
                   "A_FMN201/inventory": "skipped", "A_SO4301/inventory": "skipped",
-                  "A_HC4101/site (continuum)": "reused", "A_HC4101/ω tuning": "computed"}
+                  "A_HC4101/site (continuum)": "reused", "A_HC4101/ω tuning": "computed",
+                  "A_HC4101/ions (IP/EA)": "computed"}
+    why = rows[rows.stage == "ions (IP/EA)"].reason.iloc[0]
+    assert "anion <S^2> 0.983 (ideal 0.750)" in why and "cation" not in why
     assert rows[rows.stage == "site (continuum)"].time_s.iloc[0] == 12.5
     text = summary_text("demo", "wt", rows, ["config key 'x': y"])
     assert "1 site(s) computed" in text and "site (continuum): 1 reused\n" in text
     assert "wt B_HC4101 (HC4): failed: core atom(s) C2 missing" in text
     assert "FMN not in pigment_codes" in text and "not in the pigment library" in text
     assert "tuned ω 0.5000 at the search bound" in text and "config key 'x': y" in text
+    assert "ions (IP/EA) A_HC4101: anion <S^2> 0.983" in text
     # the landing page is valid reStructuredText (docutils renders it without errors)
     from docutils.core import publish_parts
     html = publish_parts(summary_rst(text, tmp_path), writer_name="html",

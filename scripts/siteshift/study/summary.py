@@ -21,6 +21,26 @@ SITE_STAGES = {"excited_states.json": "site (continuum)", "excited_embedded.json
                "site (embedded)", "ions.json": "ions (IP/EA)"}
 
 
+#: ⟨S²⟩ above S(S+1) by more than this marks an open-shell state as spin-contaminated (a
+#: common rule of thumb for UKS/UHF doublets: 0.75 ideal, above ~0.85 the state mixes in
+#: quartet character and its energy is suspect)
+SPIN_CONTAMINATION = 0.1
+
+
+def _ion_warnings(rec: dict) -> list:
+    """Warnings of an ion result: spin-contaminated ions (⟨S²⟩ against S(S+1))."""
+    out = []
+    for name, st in (rec.get("scf") or {}).items():
+        s2, two_s = st.get("s_squared") if isinstance(st, dict) else None, st.get("spin", 0)
+        if s2 is None:
+            continue
+        ideal = two_s / 2 * (two_s / 2 + 1)
+        if s2 - ideal > SPIN_CONTAMINATION:
+            out.append(f"{name} <S^2> {s2:.3f} (ideal {ideal:.3f}): spin-contaminated, its "
+                       "IP/EA is suspect")
+    return out
+
+
 def _time(rec: dict):
     t = rec.get("timings_s") or {}
     for k in ("total_s", "total"):
@@ -66,6 +86,9 @@ def summary_rows(inventories: dict, results: list, codes=()) -> pd.DataFrame:
                    f"{rec.get('bounds_bohr_inv')}; widen qm.tune.bounds")
         if rec.get("converged") is False:
             why = "warning: not converged"
+        spin = _ion_warnings(rec)
+        if spin:
+            why = "warning: " + "; ".join(spin)
         rows.append({"variant": rec.get("variant") or (f.parts[-4] if len(f.parts) >= 4 else ""),
                      "pigment_id": rec.get("pigment_id") or rec.get("tuned_on", ""),
                      "ccd_code": rec.get("ccd_code", ""), "stage": stage,
