@@ -246,6 +246,30 @@ def test_scf_fallback_ladder_records_the_step():
         run_scf(make_scf(mol, s), max_cycle=1)
 
 
+def test_damped_ladder_step_damps():
+    # PySCF damps the Fock matrix only while cycle < diis_start_cycle - 1
+    # (pyscf.scf.hf.get_fock): the ladder's damped step must reach that branch in its first
+    # cycles, F = (1 - d) F_new + d F_previous (pyscf.scf.hf.damping), and leave it to DIIS later.
+    from pyscf.scf import hf
+    from siteshift.qm.scf import DAMPED_CYCLES, SCF_LADDER
+    attrs = dict(SCF_LADDER)["level_shift+damping"]
+    s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
+    mf = make_scf(build_molecule(*WATER, basis="sto-3g"), s)
+    for k, v in attrs.items():
+        setattr(mf, k, v)
+    h1e, s1e = mf.get_hcore(), mf.get_ovlp()
+    dm = mf.get_init_guess()
+    vhf = mf.get_veff(mf.mol, dm)
+    f_new, f_last = h1e + vhf, h1e
+    for cycle in range(DAMPED_CYCLES):
+        f = hf.get_fock(mf, h1e, s1e, vhf, dm, cycle, mf.DIIS(mf), fock_last=f_last)
+        damped = hf.level_shift(s1e, dm * 0.5, hf.damping(f_new, f_last, attrs["damp"]),
+                                attrs["level_shift"])
+        assert np.allclose(f, damped)
+    f = hf.get_fock(mf, h1e, s1e, vhf, dm, DAMPED_CYCLES + 1, mf.DIIS(mf), fock_last=f_last)
+    assert not np.allclose(f, damped)
+
+
 @pytest.mark.slow
 def test_fast_equals_stock_on_chromophore_full_accuracy():
     # A 20-atom chromophore (HC4 from CCD ideal coordinates) at the full preset (def2-SVP, grid 3,

@@ -164,10 +164,18 @@ def covers(mol, auxbasis) -> bool:
         return False
 
 
-#: The SCF fallback ladder: each step is tried from the previous step's density.
+#: Cycles of the damped step before DIIS takes over. PySCF damps the Fock matrix only while
+#: cycle < diis_start_cycle − 1 (``pyscf.scf.hf.get_fock``); with its default diis_start_cycle
+#: of 1 a ``damp`` setting alone never acts, so the damped step sets both.
+DAMPED_CYCLES = 4
+
+#: The SCF fallback ladder: each step is tried from the previous step's density. The second
+#: step damps its first DAMPED_CYCLES Fock matrices (F ← (1 − d) F + d F_previous) and shifts
+#: the virtual levels by 0.5 Eh throughout, then extrapolates with DIIS.
 SCF_LADDER = (
     ("diis", {}),
-    ("level_shift+damping", {"level_shift": 0.5, "damp": 0.3}),
+    ("level_shift+damping", {"level_shift": 0.5, "damp": 0.3,
+                             "diis_start_cycle": DAMPED_CYCLES + 1}),
     ("second_order", None),
 )
 
