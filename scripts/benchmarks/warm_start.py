@@ -8,7 +8,7 @@ two geometries (as built, and turned, moved and jittered by --jitter Å RMS, see
 copy in the structure, or the same site in a mutant's structure) and at each ε of --eps. Every
 site is computed in separate SCFs: cold (PySCF's default guess, the ladder of siteshift), warm
 from the gas-phase orbitals carried over (``qm.warm_start: tuning``,
-:func:`siteshift.qm.scf.warm_density`) and, for every site but the first, warm from the first
+:func:`siteshift.qm.warmstart.warm_density`) and, for every site but the first, warm from the first
 site's converged orbitals carried over (``qm.warm_start: reference``: the same site in the
 reference variant); the ions of one site start from its neutral.
 
@@ -69,8 +69,8 @@ def main():
     from siteshift.qm.excite import excite
     from siteshift.qm.functional import SRSH
     from siteshift.qm.ions import ionize
-    from siteshift.qm.scf import (build_molecule, carried_start, make_scf, run_scf,
-                                  save_orbitals, warm_density)
+    from siteshift.qm.scf import build_molecule, make_scf, run_scf
+    from siteshift.qm.warmstart import carried_start, save_orbitals, warm_density
     from siteshift.qm.settings import ExciteSettings, configure_threads
     configure_threads(args.threads)
     prov = provenance()

@@ -141,7 +141,8 @@ def cmd_excite(args):
         charges = read_point_charges(args.point_charges, scale=args.charge_scale)
     dm0 = start = None
     if args.start_from:
-        from ..qm.scf import build_molecule, warm_density
+        from ..qm.scf import build_molecule
+        from ..qm.warmstart import warm_density
         mol = build_molecule(el, xyz, args.charge, args.multiplicity - 1, s.basis)
         dm0, start = warm_density(mol, args.start_from, el, xyz, s.basis)
         print(f"SCF start: {start['kind']}"
@@ -213,7 +214,7 @@ def cmd_tune(args):
                      xatol=xatol, include_anion=args.anion, log=log,
                      keep_orbitals=bool(args.save_orbitals))
     if args.save_orbitals:
-        from ..qm.scf import save_orbitals
+        from ..qm.warmstart import save_orbitals
         w, neutral = res.pop("_neutral")
         save_orbitals(args.save_orbitals, neutral, el, xyz, s.basis,
                       f"tuning of {args.xyz} (omega {w:.4f} bohr^-1)")

@@ -40,7 +40,7 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
     fast path) as ``_response`` for difference and transition densities; with relaxed, also the
     relaxed difference density (:mod:`siteshift.qm.relaxed`) of every state with a band name and
     of the lowest state (the site tables' S1). start: how dm0 was chosen (a record kept in the
-    result as ``scf_start``; :func:`siteshift.qm.scf.warm_density`).
+    result as ``scf_start``; :func:`siteshift.qm.warmstart.warm_density`).
     """
     settings = settings or ExciteSettings()
     settings.check()

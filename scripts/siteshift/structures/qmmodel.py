@@ -15,6 +15,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from ..base.geometry import kabsch  # noqa: F401 (re-exported: structures' users import it here)
+
 #: X–H bond lengths for caps, Å (common practice; typical neutron/ideal values, from memory)
 CAP_LENGTH = {"C": 1.09, "N": 1.01, "O": 0.96, "S": 1.34, "P": 1.42}
 
@@ -57,17 +59,6 @@ def formula(elements) -> str:
     order = [k for k in ("C", "H") if k in c] + sorted(k for k in c if k not in ("C", "H"))
     parts = [f"{k}{c[k] if c[k] > 1 else ''}" for k in order]
     return "".join(parts)
-
-
-def kabsch(P, Q):
-    """Rotation R and translation t minimising |(P R + t) − Q| (rows are points)."""
-    pc, qc = P.mean(0), Q.mean(0)
-    H = (P - pc).T @ (Q - qc)
-    U, _S, Vt = np.linalg.svd(H)
-    d = np.sign(np.linalg.det(U @ Vt))
-    D = np.diag([1.0, 1.0, d])
-    R = U @ D @ Vt
-    return R, qc - pc @ R
 
 
 @dataclass

@@ -21,7 +21,7 @@ from ..base import io
 from ..base.defaults import fill
 from ..interactions.ionpairs import coulomb_eps, ion_pair, mirror, same_branch_pairs
 from ..qm.ions import ionize, unscreened
-from ..qm.scf import describe_start
+from ..qm.warmstart import describe_start
 from .stages import _hash_lock, density_path, qm_key, site_settings, site_start
 
 log = logging.getLogger("siteshift")

@@ -16,7 +16,8 @@ from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.bands import assign_bands
 from ..qm.excite import excite
-from ..qm.scf import build_molecule, carried_start, save_orbitals, warm_density
+from ..qm.scf import build_molecule
+from ..qm.warmstart import carried_start, save_orbitals, warm_density
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
 from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
@@ -295,7 +296,7 @@ def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=No
     its file exists; else the orbitals of the same site computed in another variant
     (``same_site``: that site's excited_states.json, its orbitals read from the cache), carried
     to this geometry; else the tuning job's gas-phase orbitals carried to the site's geometry
-    (:func:`siteshift.qm.scf.warm_density`); else a cold start. Evaluated only when the SCF
+    (:func:`siteshift.qm.warmstart.warm_density`); else a cold start. Evaluated only when the SCF
     runs (a cached result needs none)."""
     def start():
         if density is not None and Path(density).exists():

@@ -12,7 +12,7 @@ from ..base import io
 from ..base.defaults import default
 from ..base.io import read_json
 from ..base.units import EV2CM1, NM_EV
-from ..qm.scf import describe_start
+from ..qm.warmstart import describe_start
 from ..structures.library import load_library
 from ..structures.reading import read_structure
 
