@@ -373,7 +373,9 @@ def test_tuning_is_not_redone_for_continuum_or_run_only_keys(root, tmp_path):
     assert p.returncode == 0, p.stderr[-3000:]
     # the neutral's orbitals at the tuned ω are kept for the sites' warm starts
     with np.load(tmp_path / "results/tuning/HC4.orbitals.npz") as z:
-        assert "A_HC4101" in str(z["source"]) and z["mo_coeff"].shape[0] == len(z["elements"])
+        assert "A_HC4101" in str(z["source"]) and str(z["basis"]) == "sto-3g"
+        assert z["coords_A"].shape == (len(z["elements"]), 3) == (20, 3)
+        assert z["mo_coeff"].shape[1] == z["mo_occ"].shape[0] and z["mo_occ"].sum() == 86  # C9H8O3
     cfg["qm"].update(pcm_method="C-PCM", threads=2, max_memory_mb=3000, tda=False)
     (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
     assert _planned(_snakemake(root, tmp_path, "-n", "results/tuning/HC4.json")) == {}
