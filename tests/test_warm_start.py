@@ -14,9 +14,9 @@ from scipy.spatial.transform import Rotation
 
 from siteshift.qm.ions import ionize
 from siteshift.qm.scf import build_molecule, make_scf, run_scf
+from siteshift.qm.settings import ExciteSettings
 from siteshift.qm.warmstart import (WARM_MAX_RMSD_A, carry_density, save_orbitals, superpose,
                                     warm_density)
-from siteshift.qm.settings import ExciteSettings
 
 HOF = (["O", "H", "H", "F"], np.array([[0, 0, 0.117], [0, 0.757, -0.469], [0, -0.757, -0.469],
                                        [1.2, 0.3, 0.5]]))

@@ -70,8 +70,8 @@ def main():
     from siteshift.qm.functional import SRSH
     from siteshift.qm.ions import ionize
     from siteshift.qm.scf import build_molecule, make_scf, run_scf
-    from siteshift.qm.warmstart import carried_start, save_orbitals, warm_density
     from siteshift.qm.settings import ExciteSettings, configure_threads
+    from siteshift.qm.warmstart import carried_start, save_orbitals, warm_density
     configure_threads(args.threads)
     prov = provenance()
     print(f"machine: {prov['gemm_f32_gflops']} GFLOP/s float32, {prov['gemm_f64_gflops']} "

@@ -34,7 +34,6 @@ SITE_COLUMNS = ["variant", "pigment_id", "ccd_code", "mode", "eps_static", "long
                 "cycles_neutral", "cycles_cation", "cycles_anion", "start_neutral", "qm_hash"]
 
 
-
 def cached_ionize(rec: dict, settings, cache_dir=None, charges=None, functional=None,
                   label=None, start=None, starts=None) -> tuple[dict, str]:
     """(result, hash) of one site's ion calculation, computed or reused from the cache.

@@ -17,9 +17,9 @@ from ..environment.metrics import EnvironmentSettings, environment_arrays, site_
 from ..qm.bands import assign_bands
 from ..qm.excite import excite
 from ..qm.scf import build_molecule
-from ..qm.warmstart import carried_start, save_orbitals, warm_density
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
+from ..qm.warmstart import carried_start, save_orbitals, warm_density
 from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
 from ..structures.library import load_library
 from ..structures.qmmodel import QMModel
