@@ -28,7 +28,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parents[1] / "scripts"))
 sys.path.insert(0, str(HERE))
 
-from response_speed import provenance, system  # noqa: E402
+from response_speed import append_rows, provenance, system  # noqa: E402
 
 
 def main():
@@ -44,7 +44,6 @@ def main():
     ap.add_argument("--out", default=str(HERE / "records" / "ion_cost.tsv"))
     args = ap.parse_args()
     import numpy as np
-    import pandas as pd
     from pyscf import dft
 
     from siteshift.qm.ions import ionize
@@ -95,12 +94,7 @@ def main():
               f"({row['anion_cycles']}): ratios {row['cation_over_neutral']}, "
               f"{row['anion_over_neutral']}", flush=True)
         rows.append(row)
-    out = Path(args.out)
-    df = pd.DataFrame(rows)
-    if out.exists():
-        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
-    df.to_csv(out, sep="\t", index=False)
-    print(f"appended {len(rows)} row(s) to {out}")
+    append_rows(args.out, rows)
 
 
 if __name__ == "__main__":

@@ -240,6 +240,19 @@ def check_row(name, args, fast, fast_wall, stock, stock_wall):
     return row
 
 
+def append_rows(out, rows):
+    """Append rows (dicts or a DataFrame) to a records TSV, keeping the earlier rows and the
+    union of the columns."""
+    import pandas as pd
+    out = Path(out)
+    df = pd.DataFrame(rows)
+    n = len(df)
+    if out.exists():
+        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
+    df.to_csv(out, sep="\t", index=False)
+    print(f"appended {n} row(s) to {out}")
+
+
 def provenance():
     """Columns that make rows of different days and commits comparable: the commit (with
     '+dirty' for uncommitted changes) and this machine's float32/float64 matrix-product rate

@@ -35,7 +35,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parents[1] / "scripts"))
 sys.path.insert(0, str(HERE))
 
-from response_speed import provenance, system  # noqa: E402
+from response_speed import append_rows, provenance, system  # noqa: E402
 
 
 def second_copy(xyz, jitter, seed=7):
@@ -175,11 +175,7 @@ def main():
           f"{df.scf_time_ratio.mean():.2f}, max |ΔE| {df.max_abs_dE_ev.max():.1e} eV; from the "
           f"first site {df.get('cycle_ratio_from_site', pd.Series(dtype=float)).mean():.2f}; "
           f"peak RSS {peak} MB", flush=True)
-    out = Path(args.out)
-    if out.exists():
-        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
-    df.to_csv(out, sep="\t", index=False)
-    print(f"appended {len(rows)} row(s) to {out}")
+    append_rows(args.out, df)
 
 
 if __name__ == "__main__":

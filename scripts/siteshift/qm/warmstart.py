@@ -16,9 +16,10 @@ from ..base.geometry import kabsch
 from .settings import EngineError
 
 #: Largest RMS displacement (Å) between the geometry orbitals were converged on and the one they
-#: start: beyond it the two are taken for different conformers and the SCF starts cold. Two
-#: copies of one pigment in a structure differ by tenths of an Å (measured on the demo's two
-#: HC4 sites: 0.2 Å); a ring flip or a misnumbered atom moves atoms by Å.
+#: start: beyond it the two are taken for different conformers and the SCF starts cold. Copies
+#: of one pigment in a refined structure typically differ by tenths of an Å (common practice;
+#: the demo's two HC4 sites are exact copies, 0.0 Å); a ring flip or a misnumbered atom moves
+#: atoms by Å.
 WARM_MAX_RMSD_A = 1.0
 
 
@@ -34,7 +35,8 @@ def carry_density(mol, mo_coeff, mo_occ, rotation=None):
 
     mo_coeff/mo_occ: restricted (nao × nmo, occupations 0–2) or unrestricted (2 × nao × nmo);
     the density returned has the layout the SCF of ``mol`` needs (a closed shell from an open
-    one sums the spins; an open shell from a closed one halves it).
+    one sums the spins; an open shell from a closed one halves it). Orbitals holding another
+    electron count than ``mol`` (a charged state from a neutral's) are refused (EngineError).
     """
     S = mol.intor_symmetric("int1e_ovlp")
     C = np.asarray(mo_coeff, dtype=float)
@@ -60,6 +62,9 @@ def carry_density(mol, mo_coeff, mo_occ, rotation=None):
         co = co @ (v / np.sqrt(w)) @ v.T
         dms.append((co * n[n > 0]) @ co.T)
     dm = np.asarray(dms)
+    nelec = float(occs.sum())
+    if abs(nelec - mol.nelectron) > 1e-6:
+        raise EngineError(f"{nelec:.0f} electrons there, {mol.nelectron} here")
     if mol.spin == 0:
         return dm.sum(axis=0)
     if len(dm) == 1:
@@ -132,12 +137,8 @@ def carried_start(mol, saved: dict, elements, coords_ang, basis):
         return None, {"kind": "cold", "source": label, "rmsd_A": rmsd,
                       "reason": f"geometry {rmsd:.2f} Å RMS from the saved one "
                                 f"(> {WARM_MAX_RMSD_A} Å)"}
-    try:
+    try:   # refuses another electron count (a charged state from a neutral's orbitals)
         dm = carry_density(mol, saved["mo_coeff"], saved["mo_occ"], rotation=R)
     except EngineError as exc:
         return None, {"kind": "cold", "source": label, "rmsd_A": rmsd, "reason": str(exc)}
-    nelec = float(np.einsum("...ij,ji->...", dm, mol.intor_symmetric("int1e_ovlp")).sum())
-    if abs(nelec - mol.nelectron) > 1e-6:   # a charged state from a neutral's orbitals
-        return None, {"kind": "cold", "source": label, "rmsd_A": rmsd,
-                      "reason": f"{nelec:.0f} electrons there, {mol.nelectron} here"}
     return dm, {"kind": "warm", "source": label, "rmsd_A": round(rmsd, 4)}
