@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import platform
 import time
+from types import SimpleNamespace
 
 import numpy as np
 import pyscf
@@ -21,8 +22,9 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
     (i = 0, 1 with the anion). α is held fixed and α+β = 1 (gas phase). Returns a dictionary with
     the tuned ω (bohr⁻¹), J at the optimum (eV), and every evaluation of the curve. bounds, xatol
     and include_anion default to the study config's (`qm.tune`, the full preset's tolerance).
-    keep_orbitals: also return the neutral's converged SCF at the evaluation nearest the tuned
-    ω as ``_neutral`` = (ω, SCF object) (warm starts of the study's site calculations).
+    keep_orbitals: also return the neutral's converged orbitals at the evaluation nearest the
+    tuned ω as ``_neutral`` = (ω, an object with mo_coeff and mo_occ) (warm starts of the
+    study's site calculations).
     """
     from scipy.optimize import minimize_scalar
 
@@ -53,7 +55,8 @@ def tune_omega(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings 
         t = time.perf_counter()
         n = energy(mol0, "n", omega)
         if keep_orbitals:
-            neutrals[float(omega)] = n
+            # the orbitals only: an SCF object holds its fitted tensors (GBs for a large pigment)
+            neutrals[float(omega)] = SimpleNamespace(mo_coeff=n.mo_coeff, mo_occ=n.mo_occ)
         c = energy(mol_c, "c", omega)
         ip = (c.e_tot - n.e_tot) * HARTREE2EV
         homo_n = frontier_ev(n)[0]
