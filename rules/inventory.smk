@@ -12,6 +12,7 @@ checkpoint take_inventory:
         altloc=config["altloc"],
         pigments=config["pigments"],
         overrides=config["pigment_overrides"],
+        checks=config["structure_checks"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

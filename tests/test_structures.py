@@ -36,7 +36,8 @@ def hc19(hc19_path):
 
 
 def test_19hc_altlocs(hc19_path, hc19):
-    # 19HC: 6098 ATOM/HETATM records; the occupancy policy keeps one altloc per residue.
+    # 19HC: 6098 ATOM/HETATM records; each altloc residue has one disorder group (A/B), of
+    # which the occupancy policy keeps one label.
     # Independent count from the raw file: records minus those of non-kept altloc labels.
     lines = [l for l in gzip.open(hc19_path, "rt") if l.startswith(("ATOM", "HETATM"))]
     assert len(lines) == 6098

@@ -33,9 +33,12 @@ def _library(args):
 def cmd_inventory(args):
     from ..structures.reading import read_structure
     from ..structures.inventory import take_inventory
-    atoms = read_structure(args.structure, args.altloc)
-    rows = take_inventory(atoms, _library(args))
-    print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc})")
+    chosen = {}
+    atoms = read_structure(args.structure, args.altloc, report=chosen)
+    rows = take_inventory(atoms, _library(args), altlocs=chosen, clash_A=args.clash,
+                          on_clash=args.on_clash, rebuild_missing=not args.keep_partial)
+    print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc}, per disorder "
+          f"group; clashes under {args.clash} A: {args.on_clash})")
     print(f"{'pigment_id':<14s} {'code':<5s} {'chain':<5s} {'resid':>6s} {'atoms':>6s} "
           f"{'qm':>4s} {'formula':<14s} {'q':>3s} {'mult':>4s}  status / problems")
     for r in rows:
@@ -43,6 +46,7 @@ def cmd_inventory(args):
               f"{r['n_atoms_read']:>6d} {r['n_atoms_qm']:>4d} {r['formula_qm']:<14s} "
               f"{'' if r['charge'] is None else r['charge']:>3} "
               f"{'' if r['multiplicity'] is None else r['multiplicity']:>4}  {r['status']}"
+              f"{' [altloc ' + r['altlocs'] + ']' if r['altlocs'] else ''}"
               f"{' - ' + r['problems'] if r['problems'] else ''}")
     if args.json:
         from ..base.io import write_json
@@ -309,6 +313,15 @@ def build_parser() -> argparse.ArgumentParser:
                    help=f"altloc policy: occupancy, first, or a letter (default {altloc})")
     p.add_argument("--json", help="write the inventory as JSON to this file")
     p.add_argument("--tsv", help="write the inventory as TSV to this file")
+    clash = default("structure_checks.clash_A")
+    p.add_argument("--clash", type=float, default=clash,
+                   help=f"pigment-environment heavy-atom clash distance, Å (default {clash})")
+    p.add_argument("--on-clash", choices=("error", "warn"),
+                   default=default("structure_checks.on_clash"),
+                   help="a clash makes the pigment an error (default) or a noted problem")
+    p.add_argument("--keep-partial", action="store_true",
+                   help="flag pigments missing non-core atoms as partial instead of rebuilding "
+                        "the atoms from the CCD")
     p.set_defaults(func=cmd_inventory)
     p = add("extract", "QM model and environment cluster of one pigment")
     p.add_argument("structure", help="PDB or mmCIF file (optionally .gz)")

@@ -8,7 +8,17 @@ from .reading import classify, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",
-                     "problems"]
+                     "altlocs", "rebuilt_atoms", "min_contact_A", "problems"]
+
+#: heavy atoms of a pigment and of its environment closer than this (Å) clash: two conformer
+#: states mixed, or a misplaced atom (common practice: non-bonded heavy-atom contacts in
+#: refined structures stay above ~2.5-3 Å; 2.2 Å leaves room for short hydrogen bonds)
+CLASH_A = 2.2
+CLASH_ACTIONS = ("error", "warn")
+#: environment atoms bonded to a pigment by design (covalent links, metal coordination): their
+#: short distances to the pigment are not clashes when at least LINK_MIN_A apart
+LINK_ATOMS = {("CYS", "SG"), ("LYS", "NZ"), ("HIS", "NE2"), ("HIS", "ND1"), ("MET", "SD")}
+LINK_MIN_A = 1.2
 
 
 def pigment_residues(atoms, library):
@@ -38,30 +48,106 @@ def model_for(res, library, overrides=None):
                           multiplicity=ov.get("multiplicity"))
 
 
-def take_inventory(atoms, library, overrides=None):
-    """A list of row dicts (see INVENTORY_COLUMNS), pigments first, then unsupported ligands."""
+def _elements(ag):
+    return np.char.capitalize(np.char.strip(np.asarray(
+        ag.elements if hasattr(ag, "elements") else ag.types).astype(str)))
+
+
+def clashes(atoms, res, clash_A=CLASH_A):
+    """Heavy-atom pairs of a pigment residue and everything else closer than clash_A:
+    [(pigment atom, other residue and atom, distance Å)] plus the closest such distance (None if
+    no heavy atom is within 4 Å). The pigment's metal and the link atoms of LINK_ATOMS (at least
+    LINK_MIN_A away) are exempt: their short bonds are chemistry."""
+    from scipy.spatial import cKDTree
+
+    from .qmmodel import METALS
+    own = np.isin(atoms.indices, res.atoms.indices)
+    el = _elements(atoms)
+    heavy = ~np.isin(el, ["H", "D"])
+    env = atoms[~own & heavy]
+    pig = atoms[own & heavy & ~np.isin(el, list(METALS))]
+    if not len(env) or not len(pig):
+        return [], None
+    tree = cKDTree(env.positions)
+    d, j = tree.query(pig.positions, distance_upper_bound=4.0)
+    closest = float(d.min()) if np.isfinite(d).any() else None
+    out = []
+    for i, hits in enumerate(tree.query_ball_point(pig.positions, clash_A)):
+        for h in hits:
+            o = env[h]
+            dist = float(np.linalg.norm(o.position - pig[i].position))
+            if (str(o.resname).upper(), str(o.name)) in LINK_ATOMS and dist >= LINK_MIN_A:
+                continue
+            ch = str(getattr(o, "chainID", "") or o.segid).strip() or "_"
+            alt = str(getattr(o, "altLoc", "") or "").strip()
+            out.append((str(pig[i].name), f"{ch}:{o.resname}{o.resid} {o.name}"
+                        + (f" (altloc {alt})" if alt else ""), round(dist, 2)))
+    out.sort(key=lambda c: c[2])
+    free = [c[2] for c in out]
+    return out, (min(free) if free else closest)
+
+
+def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A,
+                   on_clash="error", rebuild_missing=True):
+    """A list of row dicts (see INVENTORY_COLUMNS), pigments first, then unsupported ligands.
+
+    altlocs: read_structure's report (which conformer each pigment kept); clash_A / on_clash:
+    heavy-atom contacts of a pigment with its environment closer than clash_A make the pigment
+    an error ("error") or a problem noted ("warn"); rebuild_missing: atoms of the QM model
+    missing from the structure are rebuilt from the CCD (True) or the pigment is "partial" and
+    not computed (False); either way every copy of a type has the same QM formula.
+    """
+    if on_clash not in CLASH_ACTIONS:
+        raise ValueError(f"on_clash {on_clash!r} not one of {CLASH_ACTIONS}")
     pigs, unsup = pigment_residues(atoms, library)
     rows = []
     for r in pigs:
-        elems = np.asarray(r.atoms.elements).astype(str) if hasattr(r.atoms, "elements") else \
-            np.asarray(r.atoms.types).astype(str)
+        elems = _elements(r.atoms)
+        alt = (altlocs or {}).get(r.id, {})
         row = {"pigment_id": r.id, "ccd_code": r.code, "chain": r.chain, "resid": r.resid,
                "icode": r.icode, "n_atoms_read": len(r.atoms),
-               "n_heavy_read": int(np.sum(~np.isin(np.char.upper(elems), ["H", "D"])))}
+               "n_heavy_read": int(np.sum(~np.isin(elems, ["H", "D"]))),
+               "altlocs": alt.get("altlocs", ""), "rebuilt_atoms": ""}
+        notes = []
+        if alt.get("dropped_atoms"):
+            notes.append(f"altloc {alt['altlocs']} kept; {alt['dropped_atoms']} neighbour "
+                         f"atom(s) present only in state(s) {alt['rejected'] or 'other'} "
+                         "dropped")
+        found, closest = clashes(atoms, r, clash_A)
+        row["min_contact_A"] = None if closest is None else round(closest, 2)
+        clash = ""
+        if found:
+            shown = ", ".join(f"{a}-{o} {d:.2f} A" for a, o, d in found[:3])
+            clash = (f"clash: {len(found)} heavy-atom contact(s) under {clash_A} A ({shown}"
+                     f"{', ...' if len(found) > 3 else ''}); two conformer states mixed or an "
+                     "atom misplaced: try another altloc policy, or fix the structure")
         try:
             m = model_for(r, library, overrides)
-            row.update(status="ok", n_atoms_qm=len(m.elements), formula_qm=m.formula,
+            status = "ok"
+            if m.rebuilt and not rebuild_missing:
+                status = "partial"
+                notes.append(f"atom(s) {m.rebuilt} missing from the structure (partial "
+                             "pigment); not computed (structure_checks.rebuild_missing: false)")
+            if clash and on_clash == "error":
+                status = "error"
+            row.update(status=status, n_atoms_qm=len(m.elements), formula_qm=m.formula,
                        charge=m.charge, multiplicity=m.multiplicity,
-                       problems="; ".join(m.problems))
+                       rebuilt_atoms=" ".join(m.rebuilt),
+                       problems="; ".join([*([clash] if clash else []), *notes,
+                                           *(p for p in m.problems
+                                             if status != "partial" or "rebuilt" not in p)]))
         except ModelError as exc:
             row.update(status="error", n_atoms_qm=0, formula_qm="", charge=None,
-                       multiplicity=None, problems=str(exc))
+                       multiplicity=None, problems="; ".join([str(exc), *([clash] if clash
+                                                                          else []), *notes]))
         rows.append(row)
     for r in unsup:
         rows.append({"pigment_id": r.id, "ccd_code": r.code, "chain": r.chain, "resid": r.resid,
                      "icode": r.icode, "status": "unsupported", "n_atoms_read": len(r.atoms),
                      "n_heavy_read": len(r.atoms), "n_atoms_qm": 0, "formula_qm": "",
-                     "charge": None, "multiplicity": None,
+                     "charge": None, "multiplicity": None, "altlocs": "",
+                     "rebuilt_atoms": "", "min_contact_A": None,
                      "problems": f"{r.code} is not in the pigment library; add an entry under "
                                  "`pigments:` in the study config to include it"})
     return rows
+

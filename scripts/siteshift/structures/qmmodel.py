@@ -74,6 +74,7 @@ class QMModel:
     dropped: list = field(default_factory=list)
     missing: list = field(default_factory=list)
     problems: list = field(default_factory=list)
+    rebuilt: list = field(default_factory=list)   # heavy atoms placed from the CCD
 
     @property
     def formula(self) -> str:
@@ -141,22 +142,22 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
             if a not in heavy:
                 raise ModelError(f"pigment library entry {code}: cut bond atom {a} is not a CCD "
                                  f"atom of {code}")
-    start = ptype.core[0]
-    keep, stack = {start}, [start]
-    while stack:
-        a = stack.pop()
-        for b in adj[a]:
-            if b in heavy and b not in keep and frozenset((a, b)) not in cut and b in have:
-                keep.add(b)
-                stack.append(b)
-    dropped = sorted(heavy - keep)
     missing = sorted(n for n in heavy - set(have))
+    # the side of the cut bonds that holds the core, on the CCD graph: what every copy of this
+    # pigment type holds. Atoms of it absent from the structure are rebuilt, so a copy missing an
+    # ester carbon keeps the formula of its siblings instead of becoming a capped free acid.
+    rebuilt = rebuild_missing(_core_side(ptype.core[0], adj, heavy, cut), have, ideal_of, adj)
+    keep = _core_side(ptype.core[0], adj, heavy, cut, present=have)
+    dropped = sorted(heavy - keep)
     out_e, out_x, out_n, out_o = [], [], [], []
     for n in names:
         if n in keep:
             out_e.append(elem_of[n]); out_x.append(have[n]); out_n.append(n)
-            out_o.append("structure")
+            out_o.append("rebuilt" if n in rebuilt else "structure")
     problems = [f"atom {n} not in CCD {code}; ignored" for n in unknown]
+    if rebuilt:
+        problems.append(f"atom(s) {rebuilt} missing from the structure; rebuilt from the CCD "
+                        "ideal geometry superposed on their bonded neighbours")
     for x_name in [n for n in names if n in keep]:
         hs = [h for h in adj[x_name] if elem_of[h] == "H"]
         heavy_nb = [b for b in adj[x_name] if b in heavy]
@@ -196,7 +197,49 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
         check_charge_spin(pigment_id, out_e, charge, mult,
                           "fix the pigment library entry or the study's pigment override")
     return QMModel(pigment_id, code, out_e, np.array(out_x), out_n, out_o, charge, mult,
-                   dropped=[d for d in dropped if d in have], missing=missing, problems=problems)
+                   dropped=[d for d in dropped if d in have and d not in rebuilt],
+                   missing=missing, problems=problems, rebuilt=rebuilt)
+
+
+def _core_side(start, adj, heavy, cut, present=None):
+    """Heavy atoms connected to `start` without crossing a cut bond (only through `present`
+    atoms when given)."""
+    keep, stack = {start}, [start]
+    while stack:
+        a = stack.pop()
+        for b in adj[a]:
+            if (b in heavy and b not in keep and frozenset((a, b)) not in cut
+                    and (present is None or b in present)):
+                keep.add(b)
+                stack.append(b)
+    return keep
+
+
+def rebuild_missing(wanted, have, ideal_of, adj):
+    """Place the atoms of `wanted` absent from `have` (dict name -> Å, updated in place) from
+    the CCD ideal coordinates, growing outwards from the present atoms: each atom bonded to a
+    present one is placed by a least-squares superposition (Kabsch) of the CCD ideal geometry on
+    the present atoms within three bonds of it (at least three of them). Returns the names placed,
+    in CCD order of placement."""
+    placed = []
+    todo = [n for n in ideal_of if n in wanted and n not in have]
+    while todo:
+        front = [n for n in todo if any(b in have for b in adj[n])]
+        if not front:
+            break
+        for n in front:
+            shell, ring = {n}, {n}
+            for _ in range(3):
+                ring = {c for a in ring for c in adj[a]} - shell
+                shell |= ring
+            ref = [a for a in ideal_of if a in shell and a in have]
+            if len(ref) < 3:
+                ref = [a for a in ideal_of if a in have]
+            R, t = kabsch(np.array([ideal_of[a] for a in ref]), np.array([have[a] for a in ref]))
+            have[n] = ideal_of[n] @ R + t
+            placed.append(n)
+        todo = [n for n in todo if n not in have]
+    return placed
 
 
 def close_contacts(model: QMModel, threshold=0.9):

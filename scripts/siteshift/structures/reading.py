@@ -72,13 +72,15 @@ def _check_positions(path: Path, atoms):
                              f"{len(bad)} such atom(s): fix or remove them")
 
 
-def read_structure(path, altloc: str = "occupancy", model: int = 0):
-    """Read a structure with MDAnalysis and return an AtomGroup with one altloc per residue.
+def read_structure(path, altloc: str = "occupancy", model: int = 0, report: dict | None = None):
+    """Read a structure with MDAnalysis and return an AtomGroup with one conformer per disorder
+    group (see :func:`select_altlocs`).
 
-    altloc: "occupancy" keeps, per residue, the alternate location with the highest summed
-    occupancy (ties: alphabetical first); "first" keeps the alphabetically first; a single letter
-    keeps that label. Atoms without an altloc are always kept. Applied before anything else, since
-    bonds guessed across altlocs are wrong.
+    altloc: "occupancy" keeps, in each disorder group, the alternate location with the highest
+    summed occupancy (ties: alphabetical first); "first" keeps the alphabetically first; a single
+    letter keeps that label where the group has it (else the occupancy choice). Applied before
+    anything else, since bonds guessed across altlocs are wrong. report: a dict filled with what
+    was chosen per ligand (:func:`select_altlocs`).
     """
     import MDAnalysis as mda
 
@@ -105,31 +107,159 @@ def read_structure(path, altloc: str = "occupancy", model: int = 0):
     _check_positions(path, atoms)
     if not hasattr(atoms, "altLocs"):
         return atoms
-    keep = select_altlocs(atoms, altloc)
+    keep = select_altlocs(atoms, altloc, report=report)
     return atoms[keep]
 
 
-def select_altlocs(atoms, policy: str = "occupancy") -> np.ndarray:
-    """Boolean mask of atoms kept under an altloc policy (see :func:`read_structure`)."""
+#: a residue with an altloc atom this close (Å) to a ligand's altloc atoms follows the ligand's
+#: conformer state (modelling choice: the first shell of contacts, where two states of a site
+#: are refined against each other; farther disorder is independent)
+ALTLOC_CONTEXT_A = 5.0
+
+
+def _groups(names, labels):
+    """Disorder groups of one residue: sets of altloc labels that are alternatives of each other
+    (they give positions to the same atom names). Labels on disjoint atom sets (ring 1 in A/B,
+    ring 2 in C/D) are independent groups, each resolved on its own."""
+    parent = {lab: lab for lab in set(labels)}
+
+    def root(x):
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    by_name = {}
+    for n, lab in zip(names, labels):
+        by_name.setdefault(n, set()).add(lab)
+    for labs in by_name.values():
+        labs = sorted(labs)
+        for other in labs[1:]:
+            parent[root(other)] = root(labs[0])
+    out = {}
+    for lab in parent:
+        out.setdefault(root(lab), set()).add(lab)
+    return sorted((sorted(g) for g in out.values()), key=lambda g: g[0])
+
+
+def _pick(group, occ_of, policy):
+    if policy == "first":
+        return group[0]
+    if len(policy) == 1 and policy in group:
+        return policy
+    return max(group, key=lambda lab: (occ_of[lab], -group.index(lab)))
+
+
+def select_altlocs(atoms, policy: str = "occupancy", report: dict | None = None,
+                   context_A: float = ALTLOC_CONTEXT_A) -> np.ndarray:
+    """Boolean mask of the atoms kept: one conformer per disorder group, consistent around
+    ligands.
+
+    1. Within a residue, altloc labels that place the same atom names are one disorder group;
+       independent groups (A/B on one ring, C/D on another) are resolved separately, so no atom
+       of the residue is lost.
+    2. Ligands (HETATM residues that are not water, amino acids or additives: the pigments) choose
+       first, by `policy`. Residues and waters with altloc atoms within `context_A` of a ligand's
+       altloc atoms follow its state: a group holding the ligand's chosen label takes it; a
+       group present only in a state the ligand rejected (a label that is an alternative of the
+       chosen one in the ligand or in any group nearby; or, where the ligand's state has no
+       alternative in sight, any other label) is dropped — it belongs to the state without the
+       ligand's conformer. Everything else is chosen by `policy`.
+    Atoms without an altloc are always kept (a blank-altloc water of the other state is caught
+    by the inventory's clash check). report: filled with {ligand id: {"altlocs": "A+C",
+    "rejected": "B+D", "followers": n residues, "dropped_atoms": n}}.
+    """
     alt = np.asarray(atoms.altLocs).astype(str)
     alt = np.where(np.isin(alt, ["", " ", "."]), "", alt)
     if policy not in ALTLOC_POLICIES and not (len(policy) == 1 and policy.isalnum()):
         raise StructureError(f"altloc policy {policy!r} not one of {ALTLOC_POLICIES} or a letter")
+    keep = alt == ""
+    if keep.all():
+        return keep
     occ = np.asarray(atoms.occupancies, dtype=float) if hasattr(atoms, "occupancies") \
         else np.ones(len(atoms))
-    keep = alt == ""
+    names = np.asarray(atoms.names).astype(str)
     resindex = atoms.resindices
-    for r in np.unique(resindex[~keep]):
-        sel = (resindex == r) & ~keep
-        labels = sorted(set(alt[sel]))
-        if policy == "occupancy":
-            totals = {lab: occ[sel & (alt == lab)].sum() for lab in labels}
-            best = max(labels, key=lambda lab: (totals[lab], -labels.index(lab)))
-        elif policy == "first":
-            best = labels[0]
-        else:
-            best = policy if policy in labels else labels[0]
-        keep |= sel & (alt == best)
+    resnames = np.char.upper(np.char.strip(np.asarray(atoms.resnames).astype(str)))
+    records = np.asarray(atoms.record_types).astype(str) if hasattr(atoms, "record_types") \
+        else np.full(len(atoms), "HETATM")
+    disordered = np.unique(resindex[~keep])
+    info = {}
+    for r in disordered:
+        sel = np.where((resindex == r) & ~keep)[0]
+        occ_of = {lab: occ[sel[alt[sel] == lab]].sum() for lab in set(alt[sel])}
+        info[r] = (sel, _groups(names[sel], alt[sel]), occ_of)
+
+    def is_ligand(r):
+        i = info[r][0][0]
+        return (resnames[i] not in AMINO_ACIDS and resnames[i] not in WATERS
+                and resnames[i] not in ADDITIVES and records[i] == "HETATM")
+
+    choice = {}
+    ligands = [r for r in disordered if is_ligand(r)]
+    for r in ligands:
+        sel, groups, occ_of = info[r]
+        choice[r] = [_pick(g, occ_of, policy) for g in groups]
+    followers = {}
+    if ligands:
+        from scipy.spatial import cKDTree
+        alt_idx = np.where(~keep)[0]
+        tree = cKDTree(atoms.positions[alt_idx])
+        for r in ligands:
+            sel, groups, _occ = info[r]
+            near = set()
+            for hits in tree.query_ball_point(atoms.positions[sel], context_A):
+                near.update(int(resindex[alt_idx[h]]) for h in hits)
+            near.discard(int(r))
+            near -= set(ligands)
+            chosen = set(choice[r])
+            rejected = {lab for g in groups for lab in g} - chosen
+            for o in near:           # alternatives of a chosen label seen in the neighbours
+                for g in info[o][1]:
+                    if chosen & set(g):
+                        rejected |= set(g) - chosen
+            followers[r] = (sorted(near), chosen, rejected)
+    for r in disordered:
+        if r in choice:
+            continue
+        sel, groups, occ_of = info[r]
+        leads = [followers[lig] for lig in ligands if r in followers[lig][0]]
+        picks = []
+        for g in groups:
+            lab = None
+            for _near, chosen, rejected in leads:
+                hit = sorted(chosen & set(g))
+                if hit:
+                    lab = hit[0]
+                    break
+                if len(g) == 1 and (g[0] in rejected if rejected else g[0] not in chosen):
+                    lab = ""      # present only in a state without the ligand's: dropped
+                    break
+            picks.append(_pick(g, occ_of, policy) if lab is None else lab)
+        choice[r] = picks
+    dropped_near = {}
+    for r, picks in choice.items():
+        sel, groups, _occ = info[r]
+        for g, lab in zip(groups, picks):
+            m = sel[np.isin(alt[sel], g)]
+            if lab:
+                keep[m[alt[m] == lab]] = True
+            else:
+                dropped_near[r] = dropped_near.get(r, 0) + len(m)
+    if report is not None:
+        chains = np.asarray(atoms.chainIDs).astype(str) if hasattr(atoms, "chainIDs") \
+            else np.asarray(atoms.segids).astype(str)
+        resids = atoms.resids
+        icodes = np.asarray(getattr(atoms, "icodes", np.full(len(atoms), ""))).astype(str)
+        for r in ligands:
+            i = info[r][0][0]
+            ic = "" if icodes[i] in (" ", ".") else icodes[i].strip()
+            pid = pigment_id(chains[i].strip() or "_", resnames[i], resids[i], ic)
+            near, chosen, rejected = followers[r]
+            report[pid] = {"altlocs": "+".join(sorted(chosen)),
+                           "rejected": "+".join(sorted(rejected)),
+                           "followers": len(near),
+                           "dropped_atoms": int(sum(dropped_near.get(o, 0) for o in near))}
     return keep
 
 

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 
 from ..base import io
-from ..base.defaults import RUN_ONLY_QM_KEYS, default
+from ..base.defaults import RUN_ONLY_QM_KEYS, default, fill
 from ..environment.dielectric import DielectricModel
 from ..environment.metrics import EnvironmentSettings, environment_arrays, site_metrics
 from ..qm.bands import assign_bands
@@ -69,11 +69,14 @@ def job_qm(sm) -> dict:
 
 
 def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALTLOC,
-                    overrides=None):
-    """Write the inventory table (and JSON) of one structure; return the rows."""
+                    overrides=None, checks=None):
+    """Write the inventory table (and JSON) of one structure; return the rows. checks: the
+    config's `structure_checks` (clash_A, on_clash, rebuild_missing)."""
     library = library or load_library()
-    atoms = read_structure(structure, altloc)
-    rows = take_inventory(atoms, library, overrides)
+    checks = fill(checks, "structure_checks")
+    chosen = {}
+    atoms = read_structure(structure, altloc, report=chosen)
+    rows = take_inventory(atoms, library, overrides, altlocs=chosen, **checks)
     log.info("%s: %d atoms after altloc policy '%s'; %d pigment(s), %d unsupported ligand(s)",
              structure, len(atoms), altloc, sum(r["status"] != "unsupported" for r in rows),
              sum(r["status"] == "unsupported" for r in rows))
@@ -84,7 +87,8 @@ def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALT
     io.write_tsv(out_tsv, df)
     if out_json:
         io.write_json(out_json, {"structure": str(structure), "altloc": altloc,
-                                 "n_atoms": len(atoms), "pigments": rows})
+                                 "structure_checks": checks, "n_atoms": len(atoms),
+                                 "pigments": rows})
     return rows
 
 
