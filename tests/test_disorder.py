@@ -1,5 +1,6 @@
 """Real-structure disorder: altlocs per disorder group, the pigment's conformer leading its
-neighbours', clashes, and pigments missing atoms (rebuilt from the CCD or flagged partial).
+neighbours', clashes, pigments missing atoms (rebuilt from the CCD or flagged partial),
+and the donors around a pigment's metal.
 
 The test structures are built here from the wwPDB Chemical Component Dictionary's ideal
 coordinates of bacteriochlorophyll a (CCD code BCL, offline copy shipped with biotite) and from
@@ -195,3 +196,40 @@ def test_missing_tail_atom_rebuilt_from_ccd(hc19, library):
                    if r["pigment_id"] == "A_HEM301")
     assert partial["status"] == "partial" and "['CMB']" in partial["problems"]
 
+
+
+def test_water_ligand_enters_and_backbone_o_is_reported(tmp_path, library):
+    # BCL (CCD ideal) with a water O 2.1 Å above Mg (a five-coordinate Mg; Mg–O(water) ~2.1 Å,
+    # from memory) and a Gly backbone O 2.4 Å below: the water joins the QM model whole
+    # (C36H38MgN4O6 + H2O, neutral, TIP3P H–O–H 104.52°), the backbone O is reported but not
+    # added (no fragment rule), both listed in the record's metal_ligands, closest first.
+    from siteshift.study.stages import extract_stage
+    names, els, x = _bcl()
+    z = _normal(names, x)
+    mg = x[names.index("MG")]
+    lines = [_line(k + 1, n, " ", "BCL", "A", 301, xi, 1.0, e)
+             for k, (n, e, xi) in enumerate(zip(names, els, x))]
+    lines.append(_line(900, "O", " ", "HOH", "A", 401, mg + 2.1 * z, 1.0, "O"))
+    o = mg - 2.4 * z
+    lines.append(_line(901, "C", " ", "GLY", "A", 60, o - 1.23 * z, 1.0, "C", rec="ATOM"))
+    lines.append(_line(902, "O", " ", "GLY", "A", 60, o, 1.0, "O", rec="ATOM"))
+    path = _write(tmp_path / "ligands.pdb", lines)
+    rec = extract_stage(path, "A_BCL301", tmp_path / "m.xyz", tmp_path / "m.json",
+                        tmp_path / "c.pdb", library=library)
+    assert rec["formula"] == "C36H40MgN4O7" and rec["charge"] == 0
+    lig = rec["metal_ligands"]
+    assert [(d["residue"], d["kind"], d["in_qm"]) for d in lig] == \
+        [("A:HOH401", "water", True), ("A:GLY60", "backbone O", False)]
+    assert lig[0]["distance_A"] == pytest.approx(2.1, abs=1e-3)
+    xs = np.array(rec["coords_A"])
+    oh = [xs[rec["names"].index(f"A:HOH401:{h}")] for h in ("O", "H1", "H2")]
+    v1, v2 = oh[1] - oh[0], oh[2] - oh[0]
+    ang = np.degrees(np.arccos(v1 @ v2 / np.linalg.norm(v1) / np.linalg.norm(v2)))
+    assert ang == pytest.approx(104.52, abs=0.01)
+    assert np.linalg.norm(v1) == pytest.approx(0.9572, abs=1e-4)
+    # hydrogens point away from the metal
+    assert all(np.linalg.norm(h - mg) > 2.1 for h in oh[1:])
+    off = extract_stage(path, "A_BCL301", tmp_path / "n.xyz", tmp_path / "n.json",
+                        tmp_path / "d.pdb", library=library, axial_ligands=False)
+    assert off["formula"] == "C36H38MgN4O6"
+    assert [d["in_qm"] for d in off["metal_ligands"]] == [False, False]

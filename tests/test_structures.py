@@ -232,3 +232,25 @@ def test_axial_his_ligands_join_the_qm_model(hc19_path, library, tmp_path):
     x = np.array(rec["coords_A"])
     d = np.linalg.norm(x[:, None] - x[None], axis=-1) + np.eye(len(x)) * 10
     assert d.min() > 0.9
+
+
+def test_19hc_every_heme_gets_its_two_his_by_default(hc19, library):
+    # 19HC is a bis-His c-type cytochrome (REFERENCES.md): with the default settings every one of
+    # the 18 hemes has exactly two His Nε2 donors within 2.6 Å of Fe (1.9–2.1 Å) and both side
+    # chains enter the QM model (C38H40FeN8, neutral as configured for HEM).
+    from siteshift.base.defaults import default
+    from siteshift.structures.inventory import model_for, pigment_residues
+    from siteshift.structures.qmmodel import add_axial_ligands
+    assert default("extract.axial_ligands") is True
+    pigs, _ = pigment_residues(hc19, library)
+    hemes = [p for p in pigs if p.code == "HEM"]
+    assert len(hemes) == 18
+    for res in hemes:
+        env = hc19[~np.isin(hc19.indices, res.atoms.indices)]
+        m = add_axial_ligands(model_for(res, library), library["HEM"], env)
+        assert [(d["atom"], d["kind"], d["in_qm"]) for d in m.ligands] == \
+            [("NE2", "side chain", True)] * 2, res.id
+        assert all(1.85 < d["distance_A"] < 2.15 for d in m.ligands)
+        assert m.formula == "C38H40FeN8" and m.charge == 0
+    rows = take_inventory(hc19, library)
+    assert all(r["metal_donors"].count("HIS") == 2 for r in rows if r["ccd_code"] == "HEM")

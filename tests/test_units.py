@@ -27,6 +27,63 @@ def test_qy_qx_from_axes():
     assert axis_cosines([0, 0, 1], coords, (0, 1)) == 0.0
 
 
+def test_dark_state_below_the_bright_one_does_not_take_qy():
+    # A weakly allowed state (f 0.02, a charge-transfer-like state) 0.1 eV below the Qy state
+    # (f 0.3), both along the Qy axis: the Qy name goes to the bright one (Gouterman: Qy is the
+    # strong, lowest π→π* band of a chlorin; the brief's case "labels land on dark states").
+    # The Soret-like state along the same axis 1.2 eV higher (f 1.0) is outside the 0.5 eV
+    # window and stays unnamed.
+    coords = np.array([[0, 0, 0], [0, 4.0, 0], [0, 0, 0], [4.0, 0, 0]], float)
+    axes = {"Qy": (0, 1), "Qx": (2, 3)}
+    states = [_state(1.5, 0.02, [0.1, 1.0, 0.1]), _state(1.6, 0.3, [0.2, 6.0, 0.1]),
+              _state(2.1, 0.05, [4.0, 0.5, 0.0]), _state(2.8, 1.0, [0.3, 9.0, 0.0]),
+              _state(3.0, 0.01, [0.0, 0.0, 1.0])]
+    warnings = assign_bands(states, coords, axes)
+    assert [s["band"] for s in states] == [None, "Qy", "Qx", None, None]
+    assert warnings == []
+    # the same copy with its states listed in another order gets the same names
+    again = [dict(s) for s in reversed(states)]
+    assign_bands(again, coords, axes)
+    assert [s["band"] for s in reversed(again)] == [None, "Qy", "Qx", None, None]
+
+
+def test_band_naming_warns_when_nstates_is_too_small():
+    coords = np.array([[0, 0, 0], [0, 4.0, 0], [0, 0, 0], [4.0, 0, 0]], float)
+    axes = {"Qy": (0, 1), "Qx": (2, 3)}
+    # two states: Qy found; nothing along Qx → a warning naming nstates
+    states = [_state(1.6, 0.3, [0.2, 6.0, 0.1]), _state(1.9, 0.001, [1.0, 0.0, 0.0])]
+    w = assign_bands(states, coords, axes)
+    assert [s["band"] for s in states] == ["Qy", None]
+    assert len(w) == 1 and w[0].startswith("Qx:") and "nstates" in w[0]
+    # Qy on the highest computed state: a brighter one may lie above
+    states = [_state(1.2, 0.0, [1.0, 0.0, 0.0]), _state(1.6, 0.3, [0.2, 6.0, 0.1])]
+    w = assign_bands(states, coords, {"Qy": (0, 1)})
+    assert states[1]["band"] == "Qy" and "highest of the 2" in w[0] and "nstates" in w[0]
+
+
+def test_heme_bands_q_and_soret():
+    # Gouterman's two in-plane band systems of a porphyrin: weak Q (α; β is its vibronic side
+    # band) and strong Soret. Plane = the two N–N axes (x, y); a z-polarised state (a
+    # charge-transfer or axial-ligand state) is never named, nor a d–d state with f ~ 0.
+    coords = np.array([[0, 0, 0], [4.0, 0, 0], [0, 0, 0], [0, 4.0, 0]], float)
+    axes = {"Qy": (2, 3), "Qx": (0, 1)}
+    states = [_state(1.9, 0.0, [0.0, 0.0, 0.0]), _state(2.2, 0.02, [0.0, 0.0, 1.5]),
+              _state(2.3, 0.004, [0.5, 0.3, 0.02]), _state(2.35, 0.003, [0.3, -0.5, 0.0]),
+              _state(3.2, 0.9, [6.0, 2.0, 0.1]), _state(3.25, 1.1, [-2.0, 6.5, 0.0]),
+              _state(3.6, 0.05, [0.0, 0.1, 2.0])]
+    w = assign_bands(states, coords, axes, scheme="heme")
+    assert [s["band"] for s in states] == [None, None, "Q", None, None, "Soret", None]
+    assert w == []
+    # too few states to reach the Soret: a warning naming nstates; Q still named
+    w = assign_bands(states[:4], coords, axes, scheme="heme")
+    assert states[2]["band"] == "Q" and "Soret" in w[0] and "nstates" in w[0]
+
+
+def test_library_hemes_use_the_heme_scheme(library):
+    assert library["HEM"].band_scheme == "heme"
+    assert library["BCL"].band_scheme == "axes"
+
+
 def test_bright_state_without_axes():
     states = [_state(3.0, 0.001, [0.1, 0, 0]), _state(3.5, 0.4, [3, 0, 0])]
     assign_bands(states, np.zeros((2, 3)))

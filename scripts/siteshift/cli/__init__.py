@@ -161,6 +161,8 @@ def cmd_excite(args):
     for st in res["states"]:
         print(f"S{st['index']:<2d} {st['energy_ev']:8.4f} eV {st['wavelength_nm']:8.1f} nm "
               f"f={st['oscillator_strength']:.4f} {st['band'] or ''}")
+    for w in res.get("band_warnings") or ():
+        print(f"warning: band naming: {w}", file=sys.stderr)
     if res.get("embedding"):
         e = res["embedding"]
         print(f"embedded in {e['n_charges']} charges (total {e['total_charge_e']:+.3f} e, scale "
@@ -331,8 +333,10 @@ def build_parser() -> argparse.ArgumentParser:
     cut = default("extract.cluster_cutoff_A")
     p.add_argument("--cutoff", type=float, default=cut,
                    help=f"cluster cutoff in Å (default {cut})")
-    p.add_argument("--axial-ligands", action="store_true",
-                   help="add metal-coordinating side chains to the QM model")
+    axial = default("extract.axial_ligands")
+    p.add_argument("--axial-ligands", action=argparse.BooleanOptionalAction, default=axial,
+                   help="add the metal's coordinating side chains and waters to the QM model "
+                        f"(default {'on' if axial else 'off'}; every donor is reported)")
     p.set_defaults(func=cmd_extract)
     p = add("environment", "environment metrics and dielectrics (exit 1 if some pigments "
                             "failed, each listed; 2 if none could be measured)")

@@ -30,12 +30,13 @@ from .stock import stock_response
 def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | None = None,
            log=None, dm0=None, band_axes=None, bright_threshold=0.01, keep_density=False,
            x0=None, keep_amplitudes=False, charges=None, keep_response=False,
-           relaxed=False, start=None):
+           relaxed=False, start=None, band_scheme=None):
     """One SRSH-PCM excited-state calculation; returns the JSON-ready result dictionary.
 
     band_axes: optional {"Qy": (i, j), "Qx": (k, l)} atom-index pairs (0-based) whose directions
     name tetrapyrrole bands; without them the lowest state with f ≥ bright_threshold is flagged
-    "bright". charges: embedding charges (:class:`siteshift.qm.embedding.PointCharges`) in the
+    "bright"; band_scheme "heme" names Q and Soret instead (:mod:`siteshift.qm.bands`); the
+    naming's warnings are kept as ``band_warnings``. charges: embedding charges (:class:`siteshift.qm.embedding.PointCharges`) in the
     core Hamiltonian. keep_response: return the orbitals and the TDA amplitudes (closed-shell
     fast path) as ``_response`` for difference and transition densities; with relaxed, also the
     relaxed difference density (:mod:`siteshift.qm.relaxed`) of every state with a band name and
@@ -88,13 +89,17 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
             "pairs": pairs[k],
             "band": None,
         })
-    assign_bands(states, coords, band_axes, bright_threshold)
+    band_warnings = assign_bands(states, coords, band_axes, bright_threshold,
+                                 scheme=band_scheme)
+    for w in band_warnings:
+        log(f"warning: band naming: {w}")
     result = {
         "scf_energy_hartree": float(mf.e_tot),
         "converged": bool(mf.converged),
         "scf_step": step,
         "scf_cycles": cycles,
         "scf_start": start or {"kind": "warm" if dm0 is not None else "cold"},
+        "band_warnings": band_warnings,
         "homo_ev": float(homo),
         "lumo_ev": float(lumo),
         "functional": functional.as_dict(),

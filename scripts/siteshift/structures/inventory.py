@@ -3,12 +3,12 @@ from __future__ import annotations
 
 import numpy as np
 
-from .qmmodel import ModelError, build_qm_model
+from .qmmodel import ModelError, build_qm_model, metal_donors
 from .reading import classify, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",
-                     "altlocs", "rebuilt_atoms", "min_contact_A", "problems"]
+                     "altlocs", "rebuilt_atoms", "min_contact_A", "metal_donors", "problems"]
 
 #: heavy atoms of a pigment and of its environment closer than this (Å) clash: two conformer
 #: states mixed, or a misplaced atom (common practice: non-bonded heavy-atom contacts in
@@ -130,6 +130,9 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                              "pigment); not computed (structure_checks.rebuild_missing: false)")
             if clash and on_clash == "error":
                 status = "error"
+            donors = metal_donors(m, atoms[~np.isin(atoms.indices, r.atoms.indices)])
+            row["metal_donors"] = ", ".join(f"{d['residue']} {d['atom']} {d['distance_A']:.2f}"
+                                            for d in donors)
             row.update(status=status, n_atoms_qm=len(m.elements), formula_qm=m.formula,
                        charge=m.charge, multiplicity=m.multiplicity,
                        rebuilt_atoms=" ".join(m.rebuilt),
@@ -137,7 +140,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                                            *(p for p in m.problems
                                              if status != "partial" or "rebuilt" not in p)]))
         except ModelError as exc:
-            row.update(status="error", n_atoms_qm=0, formula_qm="", charge=None,
+            row.update(status="error", n_atoms_qm=0, formula_qm="", charge=None, metal_donors="",
                        multiplicity=None, problems="; ".join([str(exc), *([clash] if clash
                                                                           else []), *notes]))
         rows.append(row)
@@ -146,7 +149,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                      "icode": r.icode, "status": "unsupported", "n_atoms_read": len(r.atoms),
                      "n_heavy_read": len(r.atoms), "n_atoms_qm": 0, "formula_qm": "",
                      "charge": None, "multiplicity": None, "altlocs": "",
-                     "rebuilt_atoms": "", "min_contact_A": None,
+                     "rebuilt_atoms": "", "min_contact_A": None, "metal_donors": "",
                      "problems": f"{r.code} is not in the pigment library; add an entry under "
                                  "`pigments:` in the study config to include it"})
     return rows

@@ -26,6 +26,7 @@ class PigmentType:
     band_axes: dict = field(default_factory=dict)
     nstates: int = 4
     axial_ligand_atoms: dict = field(default_factory=dict)
+    band_scheme: str = "axes"     # axes (Qy/Qx) or heme (Q and Soret); see siteshift.qm.bands
 
     @property
     def spin(self) -> int:
@@ -49,7 +50,11 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
     for k, v in axes.items():
         if len(v) != 2:
             raise LibraryError(f"{where}: band_axes.{k} must name two atoms, got {list(v)}")
-    return PigmentType(code=code, name=str(d.get("name", code)), family=d["family"],
+    from ..qm.bands import SCHEMES
+    scheme = d.get("band_scheme") or ("heme" if d["family"] == "heme" else "axes")
+    if scheme not in SCHEMES:
+        raise LibraryError(f"{where}: band_scheme {scheme!r} not one of {SCHEMES}")
+    return PigmentType(code=code, band_scheme=scheme, name=str(d.get("name", code)), family=d["family"],
                        charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),
                        core=tuple(d["core"]),
                        cut_bonds=tuple(tuple(b) for b in d.get("cut_bonds", []) or []),

@@ -75,6 +75,7 @@ class QMModel:
     missing: list = field(default_factory=list)
     problems: list = field(default_factory=list)
     rebuilt: list = field(default_factory=list)   # heavy atoms placed from the CCD
+    ligands: list = field(default_factory=list)   # metal donors (see metal_donors)
 
     @property
     def formula(self) -> str:
@@ -259,63 +260,136 @@ def close_contacts(model: QMModel, threshold=0.9):
 METALS = {"Mg", "Fe", "Zn", "Ni", "Co", "Cu", "Mn", "Cd", "Ca"}
 #: amino-acid ligands: their side chain enters the QM model, cut at CA–CB (CB capped → methyl)
 LIGAND_SIDE_CHAINS = {"HIS": ["CB", "CG", "ND1", "CD2", "CE1", "NE2"],
-                      "CYS": ["CB", "SG"], "MET": ["CB", "CG", "SD", "CE"]}
+                      "CYS": ["CB", "SG"], "MET": ["CB", "CG", "SD", "CE"],
+                      "ASN": ["CB", "CG", "OD1", "ND2"], "GLN": ["CB", "CG", "CD", "OE1", "NE2"]}
+#: donor elements looked for around a metal
+DONOR_ELEMENTS = {"N", "O", "S"}
+#: water geometry for a coordinating water (O–H Å, H–O–H degrees; common practice, TIP3P)
+WATER_OH_A, WATER_HOH_DEG = 0.9572, 104.52
+
+
+def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
+    """Every N/O/S atom of the environment within cutoff_A of the pigment's metal, closest
+    first: [{"residue": "A:HIS52", "atom": "NE2", "distance_A": 2.01, "kind": "side chain" |
+    "water" | "backbone O" | "formyl O" | "ligand"}]. Empty without a metal."""
+    from .reading import AMINO_ACIDS, WATERS
+    metal = [i for i, e in enumerate(model.elements) if e in METALS]
+    if not metal or not len(env_atoms):
+        return []
+    mx = model.coords[metal[0]]
+    el = np.char.capitalize(np.char.strip(np.asarray(
+        env_atoms.elements if hasattr(env_atoms, "elements") else env_atoms.types).astype(str)))
+    d = np.linalg.norm(env_atoms.positions - mx, axis=1)
+    out = []
+    for k in np.argsort(d):
+        if d[k] >= cutoff_A:
+            break
+        if el[k] not in DONOR_ELEMENTS:
+            continue
+        a = env_atoms[int(k)]
+        rn, name = str(a.resname).upper(), str(a.name)
+        ch = str(getattr(a, "chainID", "") or a.segid).strip() or "_"
+        if rn in WATERS:
+            kind = "water"
+        elif rn == "FME" and name == "O1":
+            kind = "formyl O"
+        elif name in ("O", "OXT") and (rn in AMINO_ACIDS or rn == "FME"):
+            kind = "backbone O"
+        elif rn in AMINO_ACIDS or rn == "FME":
+            kind = "side chain"
+        else:
+            kind = "ligand"
+        out.append({"residue": f"{ch}:{rn}{a.resid}", "atom": name,
+                    "distance_A": round(float(d[k]), 3), "kind": kind, "_atom": a})
+    return out
+
+
+def _water_model(o_pos, metal_pos, tag):
+    """A coordinating water: O as read, its hydrogens in the plane through the metal–O axis,
+    bisector pointing away from the metal (TIP3P geometry)."""
+    u = np.asarray(o_pos) - metal_pos
+    u /= np.linalg.norm(u)
+    p = np.cross(u, [1.0, 0.0, 0.0])
+    if np.linalg.norm(p) < 0.1:
+        p = np.cross(u, [0.0, 1.0, 0.0])
+    p /= np.linalg.norm(p)
+    half = np.radians(WATER_HOH_DEG / 2)
+    hs = [o_pos + WATER_OH_A * (np.cos(half) * u + sgn * np.sin(half) * p) for sgn in (1, -1)]
+    return (["O", "H", "H"], [np.asarray(o_pos, float), *hs],
+            [f"{tag}:O", f"{tag}:H1", f"{tag}:H2"], ["ligand_structure", "ligand_water_h",
+                                                     "ligand_water_h"])
 
 
 def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel:
-    """Add the side chains that coordinate the pigment's metal to its QM model.
+    """Add the groups that coordinate the pigment's metal to its QM model, and report every donor.
 
-    env_atoms: MDAnalysis AtomGroup of everything but the pigment. A ligand is a residue listed in
-    the library entry's ``axial_ligand_atoms`` with one of the listed atoms within `cutoff_A` of
-    the metal. Its side chain is cut at CA–CB and capped (CB becomes a methyl); the proton on the
-    coordinating atom is removed (His → neutral Nε/Nδ-coordinated imidazole, Cys → thiolate), so
-    the charge changes by the CCD formal charges kept minus the protons removed. Water ligands and
-    residues without a side-chain rule are reported, not added.
+    env_atoms: MDAnalysis AtomGroup of everything but the pigment. Every N/O/S atom within
+    `cutoff_A` of the metal is reported (``model.ligands`` and the problems). Those of residues
+    listed in the library entry's ``axial_ligand_atoms`` enter the QM model: an amino acid's side
+    chain cut at CA–CB and capped (CB becomes a methyl; rules for His, Cys, Met, Asn, Gln), with
+    the proton on the coordinating atom removed (His → neutral Nε/Nδ-coordinated imidazole, Cys →
+    thiolate), so the charge changes by the CCD formal charges kept minus the protons removed; a
+    water whole (neutral). Backbone carbonyls, formyl-Met and other donors are reported, not added.
     """
     from types import SimpleNamespace
-    metal = [i for i, e in enumerate(model.elements) if e in METALS]
-    if not metal or not ptype.axial_ligand_atoms:
+
+    from .reading import WATERS
+    donors = metal_donors(model, env_atoms, cutoff_A)
+    if not donors:
         return model
-    mx = model.coords[metal[0]]
-    d = np.linalg.norm(env_atoms.positions - mx, axis=1)
-    close = env_atoms[d < cutoff_A]
+    mx = model.coords[[i for i, e in enumerate(model.elements) if e in METALS][0]]
     elements, coords = list(model.elements), [*model.coords]
     names, origin = list(model.names), list(model.origin)
     charge, problems = model.charge, list(model.problems)
-    seen = set()
-    for a in close:
-        rn = str(a.resname).upper()
-        key = (str(a.segid), str(getattr(a, "chainID", "")), int(a.resid), rn)
-        if key in seen or str(a.name) not in ptype.axial_ligand_atoms.get(rn, ()):
+    seen, ligands = set(), []
+    allowed = ptype.axial_ligand_atoms or {}
+    for dn in donors:
+        a = dn.pop("_atom")
+        rn, tag, lig_atom, dist = str(a.resname).upper(), dn["residue"], dn["atom"], \
+            dn["distance_A"]
+        water = rn in WATERS
+        ok = lig_atom in allowed.get(rn, ()) or (water and lig_atom in allowed.get("HOH", ()))
+        if tag in seen:
+            dn.update(in_qm=True, note="residue already in the QM model")
+            ligands.append(dn)
             continue
-        seen.add(key)
-        tag = f"{key[1] or key[0]}:{rn}{a.resid}"
-        if rn not in LIGAND_SIDE_CHAINS:
-            problems.append(f"ligand {tag} {a.name} coordinates the metal but has no side-chain "
-                            "rule; not added to the QM model")
+        if not ok or not (water or rn in LIGAND_SIDE_CHAINS):
+            why = (f"not among the library's axial_ligand_atoms for {model.code}"
+                   if rn in LIGAND_SIDE_CHAINS or water else f"no fragment rule for a {dn['kind']}")
+            dn.update(in_qm=False, note=why)
+            ligands.append(dn)
+            problems.append(f"donor {tag} {lig_atom} ({dn['kind']}, {dist:.2f} A from the "
+                            f"metal) not in the QM model: {why}")
             continue
-        res = a.residue.atoms & env_atoms
-        lt = SimpleNamespace(core=tuple(LIGAND_SIDE_CHAINS[rn]), cut_bonds=(("CB", "CA"),),
-                             charge=0, multiplicity=1)
-        sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions, lt,
-                             charge=0, multiplicity=1, check_spin=False)
-        lig_atom = str(a.name)
-        _n, _e, _x, adj = ccd_graph(rn)
-        drop_h = {h for h in adj[lig_atom] if h.startswith("H")}
-        arr = ccd_residue(rn)
-        formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
-        q = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
-        q -= sum(1 for n in sub.names if n in drop_h)
-        for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
-            if n in drop_h:
-                continue
-            elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
-            origin.append(f"ligand_{o}")
+        seen.add(tag)
+        if water:
+            e3, x3, n3, o3 = _water_model(a.position, mx, tag)
+            elements += e3; coords += x3; names += n3; origin += o3
+            q = 0
+        else:
+            res = a.residue.atoms & env_atoms
+            lt = SimpleNamespace(core=tuple(LIGAND_SIDE_CHAINS[rn]), cut_bonds=(("CB", "CA"),),
+                                 charge=0, multiplicity=1)
+            sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions,
+                                 lt, charge=0, multiplicity=1, check_spin=False)
+            _n, _e, _x, adj = ccd_graph(rn)
+            drop_h = {h for h in adj[lig_atom] if h.startswith("H")}
+            arr = ccd_residue(rn)
+            formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
+            q = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
+            q -= sum(1 for n in sub.names if n in drop_h)
+            for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
+                if n in drop_h:
+                    continue
+                elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
+                origin.append(f"ligand_{o}")
         charge += q
-        dist = float(np.linalg.norm(a.position - mx))
+        dn.update(in_qm=True, note=f"charge {q:+d}")
+        ligands.append(dn)
         problems.append(f"axial ligand {tag} ({lig_atom}, {dist:.2f} A) in QM, charge {q:+d}")
     out = QMModel(model.pigment_id, model.code, elements, np.array(coords), names, origin,
-                  charge, model.multiplicity, model.dropped, model.missing, problems)
+                  charge, model.multiplicity, model.dropped, model.missing, problems,
+                  rebuilt=model.rebuilt, ligands=ligands)
     check_charge_spin(model.pigment_id, out.elements, out.charge, out.multiplicity,
                       "check the axial ligands' protonation or the pigment override")
     return out

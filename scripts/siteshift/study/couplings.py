@@ -42,7 +42,7 @@ STATE_COLUMNS = ["variant", "group", "state", "energy_ev", "energy_cm1", "wavele
 
 def pick_state(states, band="auto") -> dict:
     """The state of a site that couples: a band name, a state number, or auto (Qy where named,
-    else bright, else the lowest)."""
+    else bright, else a heme's Soret, else the lowest)."""
     by_band = {s.get("band"): s for s in states if s.get("band")}
     if str(band).isdigit():
         k = int(band)
@@ -51,7 +51,7 @@ def pick_state(states, band="auto") -> dict:
             raise KeyError(f"couplings.band: state {k} not computed ({len(states)} states)")
         return hit[0]
     if band == "auto":
-        for name in ("Qy", "bright"):
+        for name in ("Qy", "bright", "Soret"):
             if name in by_band:
                 return by_band[name]
         return min(states, key=lambda s: s["energy_ev"])

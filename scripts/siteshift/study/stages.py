@@ -110,8 +110,11 @@ def model_record(model: QMModel, ptype, structure) -> dict:
             "n_atoms": len(model.elements), "elements": model.elements,
             "coords_A": np.round(model.coords, 6).tolist(), "names": model.names,
             "origin": model.origin, "dropped_atoms": model.dropped,
-            "missing_atoms": model.missing, "problems": model.problems, "band_axes": axes,
-            "nstates_default": ptype.nstates, "family": ptype.family}
+            "missing_atoms": model.missing, "rebuilt_atoms": model.rebuilt,
+            "problems": model.problems, "band_axes": axes, "band_scheme": ptype.band_scheme,
+            "nstates_default": ptype.nstates, "family": ptype.family,
+            "metal_ligands": [{k: v for k, v in d.items() if k != "_atom"}
+                              for d in model.ligands]}
 
 
 def _write_atoms(ag, path):
@@ -120,19 +123,28 @@ def _write_atoms(ag, path):
 
 
 def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, library=None,
-                  altloc=_ALTLOC, cutoff_A=_CUTOFF, overrides=None, axial_ligands=False):
+                  altloc=_ALTLOC, cutoff_A=_CUTOFF, overrides=None,
+                  axial_ligands=default("extract.axial_ligands")):
     """QM model (XYZ + JSON record) and environment cluster (PDB) of one pigment.
 
-    axial_ligands: add the side chains coordinating the pigment's metal to the QM model.
+    axial_ligands: add the groups coordinating the pigment's metal to the QM model (the
+    library's axial_ligand_atoms); every donor within 2.6 Å is listed in the record's
+    ``metal_ligands`` either way.
     """
-    from ..structures.qmmodel import add_axial_ligands
+    from ..structures.qmmodel import add_axial_ligands, metal_donors
     library = library or load_library()
     atoms = read_structure(structure, altloc)
     res = find_pigment(atoms, library, pigment_id)
     model = model_for(res, library, overrides)
+    env = atoms[~np.isin(atoms.indices, res.atoms.indices)]
     if axial_ligands:
-        model = add_axial_ligands(model, library[res.code],
-                                  atoms[~np.isin(atoms.indices, res.atoms.indices)])
+        model = add_axial_ligands(model, library[res.code], env)
+    else:
+        model.ligands = [{**d, "in_qm": False, "note": "extract.axial_ligands is off"}
+                         for d in metal_donors(model, env)]
+    for d in model.ligands:
+        log.info("%s: metal donor %s %s (%s) %.2f A: %s", pigment_id, d["residue"], d["atom"],
+                 d["kind"], d["distance_A"], "in the QM model" if d["in_qm"] else d["note"])
     rec = model_record(model, library[res.code], structure)
     io.atomic_write_text(out_xyz, model.to_xyz())
     io.write_json(out_model, rec)
@@ -366,8 +378,9 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
                 log.info("%s: QM inputs unchanged (hash %s); reusing %s", label, h, cached)
                 result["cache"] = "reused"
                 # band names follow today's rules, not those of the run that computed them
-                assign_bands(result["states"], np.asarray(rec["coords_A"]),
-                             rec["band_axes"] or None)
+                result["band_warnings"] = assign_bands(
+                    result["states"], np.asarray(rec["coords_A"]), rec["band_axes"] or None,
+                    scheme=rec.get("band_scheme"))
                 return result, h, arrays
             log.info("%s: cached result %s lacks relaxed densities; recomputing", label, h)
             if density_path(cached).exists():
@@ -387,6 +400,7 @@ def cached_excite(rec: dict, settings: ExciteSettings, cache_dir=None, charges=N
                  "" if charges is None else f", {len(charges)} embedding charges", h)
         result = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                         settings, log=log.info, band_axes=rec["band_axes"] or None,
+                        band_scheme=rec.get("band_scheme"),
                         keep_density=True, dm0=dm0, charges=charges, keep_response=True,
                         relaxed=relaxed, start=how)
         result["cache"] = "computed"

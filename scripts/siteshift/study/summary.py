@@ -86,7 +86,7 @@ def summary_rows(inventories: dict, results: list, codes=()) -> pd.DataFrame:
                    f"{rec.get('bounds_bohr_inv')}; widen qm.tune.bounds")
         if rec.get("converged") is False:
             why = "warning: not converged"
-        spin = _ion_warnings(rec)
+        spin = _ion_warnings(rec) + [f"band naming: {w}" for w in rec.get("band_warnings") or ()]
         if spin:
             why = "warning: " + "; ".join(spin)
         rows.append({"variant": rec.get("variant") or (f.parts[-4] if len(f.parts) >= 4 else ""),

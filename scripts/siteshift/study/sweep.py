@@ -86,6 +86,7 @@ def sweep_stage(model_json, out_json, qm: dict, eps_grid, n2=2.0, tuning_json=No
         guess, dm = sweep_guess(dms, xs, eps)
         res = excite(rec["elements"], rec["coords_A"], rec["charge"], rec["multiplicity"] - 1,
                      s, log=None, dm0=dm, band_axes=rec["band_axes"] or None,
+                     band_scheme=rec.get("band_scheme"),
                      keep_density=True)
         cold = None
         if k == 1 and measure_cold_start:
