@@ -223,12 +223,20 @@ def test_19hc_bis_his_ligands_in_every_cluster(hc19_path, tmp_path, library):
 def test_axial_his_ligands_join_the_qm_model(hc19_path, library, tmp_path):
     # 19HC bis-His hemes: with axial ligands on, each QM model gains two 4-methylimidazoles
     # (His side chains cut at CA–CB; the coordinating Nε loses its proton): C30H28FeN4 +
-    # 2 × C4H6N2 = C38H40FeN8, still neutral (formula from the CCD HIS entry).
+    # 2 × C4H6N2 = C38H40FeN8 (formula from the CCD HIS entry); bis-His ligation takes the
+    # library's ligation state, Fe(III) low spin: charge +1, doublet (349 electrons). A pigment
+    # override (here the reduced Fe(II) singlet) wins over the ligation state.
     from siteshift.study.stages import extract_stage
     rec = extract_stage(hc19_path, "B_HEM305", tmp_path / "m.xyz", tmp_path / "m.json",
                         tmp_path / "c.pdb", library=library, axial_ligands=True)
-    assert rec["formula"] == "C38H40FeN8" and rec["charge"] == 0
+    assert rec["formula"] == "C38H40FeN8"
+    assert (rec["charge"], rec["multiplicity"]) == (1, 2)
     assert sum("axial ligand" in p for p in rec["problems"]) == 2
+    assert any(p.startswith("ligation HIS+HIS") for p in rec["problems"])
+    red = extract_stage(hc19_path, "B_HEM305", tmp_path / "r.xyz", tmp_path / "r.json",
+                        tmp_path / "r.pdb", library=library,
+                        overrides={"B_HEM305": {"charge": 0, "multiplicity": 1}})
+    assert (red["charge"], red["multiplicity"]) == (0, 1)
     x = np.array(rec["coords_A"])
     d = np.linalg.norm(x[:, None] - x[None], axis=-1) + np.eye(len(x)) * 10
     assert d.min() > 0.9
@@ -237,7 +245,8 @@ def test_axial_his_ligands_join_the_qm_model(hc19_path, library, tmp_path):
 def test_19hc_every_heme_gets_its_two_his_by_default(hc19, library):
     # 19HC is a bis-His c-type cytochrome (REFERENCES.md): with the default settings every one of
     # the 18 hemes has exactly two His Nε2 donors within 2.6 Å of Fe (1.9–2.1 Å) and both side
-    # chains enter the QM model (C38H40FeN8, neutral as configured for HEM).
+    # chains enter the QM model (C38H40FeN8) in the library's bis-His state, Fe(III) low spin
+    # (charge +1, doublet; config/pigments.yaml ligation_states, sourced there).
     from siteshift.base.defaults import default
     from siteshift.structures.inventory import model_for, pigment_residues
     from siteshift.structures.qmmodel import add_axial_ligands
@@ -251,6 +260,8 @@ def test_19hc_every_heme_gets_its_two_his_by_default(hc19, library):
         assert [(d["atom"], d["kind"], d["in_qm"]) for d in m.ligands] == \
             [("NE2", "side chain", True)] * 2, res.id
         assert all(1.85 < d["distance_A"] < 2.15 for d in m.ligands)
-        assert m.formula == "C38H40FeN8" and m.charge == 0
+        assert m.formula == "C38H40FeN8" and (m.charge, m.multiplicity) == (1, 2)
     rows = take_inventory(hc19, library)
-    assert all(r["metal_donors"].count("HIS") == 2 for r in rows if r["ccd_code"] == "HEM")
+    hem = [r for r in rows if r["ccd_code"] == "HEM"]
+    assert all(r["metal_donors"].count("HIS") == 2 for r in hem)
+    assert all("HIS+HIS" in r["problems"] and "multiplicity 2" in r["problems"] for r in hem)

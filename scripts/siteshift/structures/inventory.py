@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .qmmodel import ModelError, build_qm_model, metal_donors
+from .qmmodel import ModelError, build_qm_model, ligation_key, metal_donors
 from .reading import classify, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
@@ -133,6 +133,14 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
             donors = metal_donors(m, atoms[~np.isin(atoms.indices, r.atoms.indices)])
             row["metal_donors"] = ", ".join(f"{d['residue']} {d['atom']} {d['distance_A']:.2f}"
                                             for d in donors)
+            lig = ligation_key(library[r.code], donors)
+            st = library[r.code].ligation_states.get(lig)
+            ov = (overrides or {}).get(r.id, {})
+            if st and "charge" not in ov and "multiplicity" not in ov:
+                notes.append(f"with its axial ligands {lig} in the QM model "
+                             f"(extract.axial_ligands) the pigment takes charge "
+                             f"{st['charge']:+d}, multiplicity {st['multiplicity']} "
+                             f"({st['note']})")
             row.update(status=status, n_atoms_qm=len(m.elements), formula_qm=m.formula,
                        charge=m.charge, multiplicity=m.multiplicity,
                        rebuilt_atoms=" ".join(m.rebuilt),

@@ -27,6 +27,7 @@ class PigmentType:
     nstates: int = 4
     axial_ligand_atoms: dict = field(default_factory=dict)
     band_scheme: str = "axes"     # axes (Qy/Qx) or heme (Q and Soret); see siteshift.qm.bands
+    ligation_states: dict = field(default_factory=dict)   # {"HIS+HIS": {charge, multiplicity}}
 
     @property
     def spin(self) -> int:
@@ -54,7 +55,16 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
     scheme = d.get("band_scheme") or ("heme" if d["family"] == "heme" else "axes")
     if scheme not in SCHEMES:
         raise LibraryError(f"{where}: band_scheme {scheme!r} not one of {SCHEMES}")
-    return PigmentType(code=code, band_scheme=scheme, name=str(d.get("name", code)), family=d["family"],
+    states = {}
+    for key, st in (d.get("ligation_states") or {}).items():
+        if not isinstance(st, dict) or "charge" not in st or "multiplicity" not in st \
+                or int(st["multiplicity"]) < 1:
+            raise LibraryError(f"{where}: ligation_states.{key} needs charge and multiplicity "
+                               f">= 1, got {st}")
+        canon = "+".join(sorted(str(key).upper().split("+")))
+        states[canon] = {"charge": int(st["charge"]), "multiplicity": int(st["multiplicity"]),
+                         "note": str(st.get("note", ""))}
+    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, name=str(d.get("name", code)), family=d["family"],
                        charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),
                        core=tuple(d["core"]),
                        cut_bonds=tuple(tuple(b) for b in d.get("cut_bonds", []) or []),

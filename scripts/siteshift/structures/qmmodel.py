@@ -304,6 +304,22 @@ def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
     return out
 
 
+def ligation_key(ptype, donors) -> str:
+    """The ligation (residue names joined by "+", sorted) of the donors that
+    :func:`add_axial_ligands` puts in the QM model: those the library's axial_ligand_atoms
+    allow and a fragment rule covers, one per residue."""
+    from .reading import WATERS
+    allowed = ptype.axial_ligand_atoms or {}
+    seen = {}
+    for d in donors:
+        rn = d["residue"].split(":", 1)[1].rstrip("0123456789-")
+        water = rn in WATERS
+        ok = d["atom"] in allowed.get(rn, ()) or (water and d["atom"] in allowed.get("HOH", ()))
+        if ok and (water or rn in LIGAND_SIDE_CHAINS):
+            seen.setdefault(d["residue"], "HOH" if water else rn)
+    return "+".join(sorted(seen.values()))
+
+
 def _water_model(o_pos, metal_pos, tag):
     """A coordinating water: O as read, its hydrogens in the plane through the metal–O axis,
     bisector pointing away from the metal (TIP3P geometry)."""
@@ -320,7 +336,8 @@ def _water_model(o_pos, metal_pos, tag):
                                                      "ligand_water_h"])
 
 
-def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel:
+def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6,
+                      fixed_state=False) -> QMModel:
     """Add the groups that coordinate the pigment's metal to its QM model, and report every donor.
 
     env_atoms: MDAnalysis AtomGroup of everything but the pigment. Every N/O/S atom within
@@ -330,6 +347,9 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel
     the proton on the coordinating atom removed (His → neutral Nε/Nδ-coordinated imidazole, Cys →
     thiolate), so the charge changes by the CCD formal charges kept minus the protons removed; a
     water whole (neutral). Backbone carbonyls, formyl-Met and other donors are reported, not added.
+    The pigment's own charge and multiplicity then follow the library's ``ligation_states`` for
+    the ligands added (e.g. HIS+HIS → Fe(III) low spin for HEM), unless `fixed_state` (a
+    pigment override gave them).
     """
     from types import SimpleNamespace
 
@@ -387,8 +407,17 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6) -> QMModel
         dn.update(in_qm=True, note=f"charge {q:+d}")
         ligands.append(dn)
         problems.append(f"axial ligand {tag} ({lig_atom}, {dist:.2f} A) in QM, charge {q:+d}")
+    mult = model.multiplicity
+    key = ligation_key(ptype, ligands)
+    state = (ptype.ligation_states or {}).get(key)
+    if state and not fixed_state:
+        charge += state["charge"] - model.charge
+        mult = state["multiplicity"]
+        problems.append(f"ligation {key}: pigment charge {state['charge']:+d}, multiplicity "
+                        f"{mult} ({state['note'] or 'library ligation_states'}); a "
+                        "pigment_overrides entry sets another state")
     out = QMModel(model.pigment_id, model.code, elements, np.array(coords), names, origin,
-                  charge, model.multiplicity, model.dropped, model.missing, problems,
+                  charge, mult, model.dropped, model.missing, problems,
                   rebuilt=model.rebuilt, ligands=ligands)
     check_charge_spin(model.pigment_id, out.elements, out.charge, out.multiplicity,
                       "check the axial ligands' protonation or the pigment override")

@@ -138,7 +138,9 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
     model = model_for(res, library, overrides)
     env = atoms[~np.isin(atoms.indices, res.atoms.indices)]
     if axial_ligands:
-        model = add_axial_ligands(model, library[res.code], env)
+        ov = (overrides or {}).get(pigment_id, {})
+        model = add_axial_ligands(model, library[res.code], env,
+                                  fixed_state="charge" in ov or "multiplicity" in ov)
     else:
         model.ligands = [{**d, "in_qm": False, "note": "extract.axial_ligands is off"}
                          for d in metal_donors(model, env)]
