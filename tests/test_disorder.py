@@ -1,6 +1,6 @@
-"""Real-structure disorder: altlocs per disorder group, the pigment's conformer leading its
+"""Real-structure chemistry: altlocs per disorder group, the pigment's conformer leading its
 neighbours', clashes, pigments missing atoms (rebuilt from the CCD or flagged partial),
-and the donors around a pigment's metal.
+the donors around a pigment's metal, and chromophores covalently linked to the protein.
 
 The test structures are built here from the wwPDB Chemical Component Dictionary's ideal
 coordinates of bacteriochlorophyll a (CCD code BCL, offline copy shipped with biotite) and from
@@ -233,3 +233,85 @@ def test_water_ligand_enters_and_backbone_o_is_reported(tmp_path, library):
                         tmp_path / "d.pdb", library=library, axial_ligands=False)
     assert off["formula"] == "C36H38MgN4O6"
     assert [d["in_qm"] for d in off["metal_ligands"]] == [False, False]
+
+
+def _ccd_heavy(code):
+    names, elements, x, _adj = ccd_graph(code)
+    heavy = [i for i, e in enumerate(elements) if e != "H"]
+    return [names[i] for i in heavy], [elements[i] for i in heavy], x[heavy]
+
+
+def _linked(tmp_path, code, atom, leaving, partner_code, chain3, bond, angle, with_partner=True):
+    """`code` (CCD ideal, `leaving` atom removed) and a `partner_code` residue (CCD ideal,
+    superposed on a zigzag chain3 = (partner atom, next, next-but-one) that starts `bond` Å from
+    `atom` along the leaving atom's direction, trans to the pigment chain)."""
+    from siteshift.structures.qmmodel import kabsch
+    names, els, x = _ccd_heavy(code)
+    c = x[names.index(atom)]
+    u = x[names.index(leaving)] - c
+    u /= np.linalg.norm(u)
+    back = [n for n in _adj_of(code)[atom] if n in names and n != leaving][0]
+    w = x[names.index(back)] - c
+    w -= (w @ u) * u
+    w /= np.linalg.norm(w)
+    p0 = c + bond * u
+    th = np.radians(angle)
+    p1 = p0 + 1.5 * (np.cos(th) * -u - np.sin(th) * w)
+    p2 = p1 + 1.52 * u
+    lines = [_line(k + 1, n, " ", code, "A", 301, xi, 1.0, e)
+             for k, (n, e, xi) in enumerate(zip(names, els, x)) if n != leaving]
+    if with_partner:
+        pn, pe, px = _ccd_heavy(partner_code)
+        ref = [pn.index(a) for a in chain3]
+        R, t = kabsch(px[ref], np.array([p0, p1, p2]))
+        for k, (n, e, xi) in enumerate(zip(pn, pe, px @ R + t)):
+            if n != "OXT":
+                lines.append(_line(500 + k, n, " ", partner_code, "A", 216, xi, 1.0, e,
+                                   rec="ATOM"))
+    return _write(tmp_path / f"{code}_{partner_code}.pdb", lines)
+
+
+def _adj_of(code):
+    return ccd_graph(code)[3]
+
+
+def test_retinal_lys_schiff_base_is_protonated(tmp_path, library):
+    # Retinal bound to a Lys as the protonated Schiff base (common practice for rhodopsins): the
+    # aldehyde O1 gives way to NZ (C15=NZ), the Lys enters as CE–NZ(H) cut at CD–CE: the
+    # N-methyl retinylidene iminium C21H32N+ (CCD RET C20H28O − O + NH + CH3), charge +1, singlet.
+    from siteshift.study.stages import extract_stage
+    path = _linked(tmp_path, "RET", "C15", "O1", "LYS", ("NZ", "CE", "CD"), 1.30, 123.0)
+    rec = extract_stage(path, "A_RET301", tmp_path / "m.xyz", tmp_path / "m.json",
+                        tmp_path / "c.pdb", library=library)
+    assert rec["formula"] == "C21H32N" and (rec["charge"], rec["multiplicity"]) == (1, 1)
+    assert any(p.startswith("linked residue A:LYS216 (NZ-C15") for p in rec["problems"])
+    x = np.array(rec["coords_A"])
+    nz = x[rec["names"].index("A:LYS216:NZ")]
+    hn = [i for i, n in enumerate(rec["names"]) if n == "A:LYS216:HNZ"]
+    assert len(hn) == 1 and np.linalg.norm(x[hn[0]] - nz) == pytest.approx(1.01, abs=1e-6)
+    assert "O1" not in rec["names"]
+    # no two atoms closer than a bond to hydrogen
+    d = np.linalg.norm(x[:, None] - x[None], axis=-1) + np.eye(len(x)) * 10
+    assert d.min() > 0.9
+    # the same retinal without its Lys (and without O1) is the free aldehyde, O1 rebuilt
+    free = _linked(tmp_path, "RET", "C15", "O1", "LYS", ("NZ", "CE", "CD"), 1.30, 123.0,
+                   with_partner=False)
+    row = take_inventory(read_structure(free), library)[0]
+    assert row["formula_qm"] == "C20H28O" and row["charge"] == 0
+    assert row["rebuilt_atoms"] == "O1"
+
+
+def test_thioester_chromophore_with_cys_is_a_phenolate(tmp_path, library):
+    # p-coumaric acid as the thioester of a Cys with a deprotonated phenol (the photoactive-
+    # yellow-protein chromophore): C1–SG replaces the hydroxyl O2, Cys enters as SG–CB cut at
+    # CA–CB, HO4' leaves: S-methyl thioester phenolate C10H9O2S−, charge −1 (CCD HC4 C9H8O3
+    # − OH − H + SCH3).
+    path = _linked(tmp_path, "HC4", "C1", "O2", "CYS", ("SG", "CB", "CA"), 1.77, 100.0)
+    atoms = read_structure(path)
+    row = take_inventory(atoms, library)[0]
+    assert row["status"] == "ok", row["problems"]
+    assert row["formula_qm"] == "C10H9O2S" and row["charge"] == -1
+    assert "thioester with Cys" in row["problems"]
+    # the charge the QM model took from the Cys (0) is what the embedding charges remove
+    from siteshift.environment.charges import _ligand_charges
+    assert _ligand_charges({"problems": row["problems"].split("; ")}) == {"A:CYS216": 0}

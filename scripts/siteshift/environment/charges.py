@@ -392,7 +392,7 @@ def _ligand_charges(record) -> dict:
     """{ligand tag: charge the QM model took with it}, from the model's problem notes."""
     out = {}
     for p in record.get("problems", []):
-        if p.startswith("axial ligand ") and "charge " in p:
+        if p.startswith(("axial ligand ", "linked residue ")) and "charge " in p:
             tag = p.split()[2]
             out[tag] = int(p.rsplit("charge ", 1)[1].split()[0])
     return out

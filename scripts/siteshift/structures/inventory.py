@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .qmmodel import ModelError, build_qm_model, ligation_key, metal_donors
+from .qmmodel import (ModelError, add_link, build_qm_model, find_link, ligation_key,
+                      metal_donors)
 from .reading import classify, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
@@ -39,13 +40,22 @@ def _is_het(res) -> bool:
     return True
 
 
-def model_for(res, library, overrides=None):
+def model_for(res, library, overrides=None, env=None):
+    """The QM model of a pigment residue; env (everything else, an AtomGroup): where a covalent
+    link of the library entry is found (retinal–Lys Schiff base, chromophore–Cys thioester), the
+    linked residue's atoms join the model, cut and capped, with the link's charge."""
     ov = (overrides or {}).get(res.id, {})
     ptype = library[res.code]
-    return build_qm_model(res.id, res.code, list(res.atoms.names), list(res.atoms.elements)
-                          if hasattr(res.atoms, "elements") else list(res.atoms.types),
-                          res.atoms.positions, ptype, charge=ov.get("charge"),
-                          multiplicity=ov.get("multiplicity"))
+    link, partner = find_link(ptype, res.atoms, env) if env is not None else (None, None)
+    m = build_qm_model(res.id, res.code, list(res.atoms.names), list(res.atoms.elements)
+                       if hasattr(res.atoms, "elements") else list(res.atoms.types),
+                       res.atoms.positions, ptype, charge=ov.get("charge"),
+                       multiplicity=ov.get("multiplicity"), check_spin=link is None,
+                       replaced=link["replaces"] if link else (),
+                       drop_h=link["drop_h"] if link else ())
+    if link:
+        m = add_link(m, link, partner, env, fixed_state="charge" in ov)
+    return m
 
 
 def _elements(ag):
@@ -121,8 +131,9 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
             clash = (f"clash: {len(found)} heavy-atom contact(s) under {clash_A} A ({shown}"
                      f"{', ...' if len(found) > 3 else ''}); two conformer states mixed or an "
                      "atom misplaced: try another altloc policy, or fix the structure")
+        env = atoms[~np.isin(atoms.indices, r.atoms.indices)]
         try:
-            m = model_for(r, library, overrides)
+            m = model_for(r, library, overrides, env=env)
             status = "ok"
             if m.rebuilt and not rebuild_missing:
                 status = "partial"
@@ -130,7 +141,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                              "pigment); not computed (structure_checks.rebuild_missing: false)")
             if clash and on_clash == "error":
                 status = "error"
-            donors = metal_donors(m, atoms[~np.isin(atoms.indices, r.atoms.indices)])
+            donors = metal_donors(m, env)
             row["metal_donors"] = ", ".join(f"{d['residue']} {d['atom']} {d['distance_A']:.2f}"
                                             for d in donors)
             lig = ligation_key(library[r.code], donors)

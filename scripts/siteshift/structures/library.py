@@ -28,6 +28,7 @@ class PigmentType:
     axial_ligand_atoms: dict = field(default_factory=dict)
     band_scheme: str = "axes"     # axes (Qy/Qx) or heme (Q and Soret); see siteshift.qm.bands
     ligation_states: dict = field(default_factory=dict)   # {"HIS+HIS": {charge, multiplicity}}
+    links: tuple = ()             # covalent links to a protein residue (see config/pigments.yaml)
 
     @property
     def spin(self) -> int:
@@ -64,7 +65,20 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
         canon = "+".join(sorted(str(key).upper().split("+")))
         states[canon] = {"charge": int(st["charge"]), "multiplicity": int(st["multiplicity"]),
                          "note": str(st.get("note", ""))}
-    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, name=str(d.get("name", code)), family=d["family"],
+    links = []
+    for k, ln in enumerate(d.get("links") or []):
+        need = ("residue", "partner", "atom", "keep", "cut", "charge")
+        lack = [x for x in need if x not in (ln or {})]
+        if lack or len(ln["cut"]) != 2:
+            raise LibraryError(f"{where}: links[{k}] lacks {lack or ['a two-atom cut']} "
+                               f"(keys: {list(need)}, optional replaces, drop_h, partner_h, "
+                               "max_A, note)")
+        links.append({**ln, "residue": str(ln["residue"]).upper(),
+                      "replaces": list(ln.get("replaces") or []),
+                      "drop_h": list(ln.get("drop_h") or []),
+                      "partner_h": int(ln.get("partner_h", 0)),
+                      "max_A": float(ln.get("max_A", 1.9)), "charge": int(ln["charge"])})
+    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, links=tuple(links), name=str(d.get("name", code)), family=d["family"],
                        charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),
                        core=tuple(d["core"]),
                        cut_bonds=tuple(tuple(b) for b in d.get("cut_bonds", []) or []),

@@ -111,11 +111,14 @@ def check_charge_spin(pigment_id, elements, charge, multiplicity, fix):
 
 
 def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, ptype,
-                   charge=None, multiplicity=None, check_spin=True) -> QMModel:
+                   charge=None, multiplicity=None, check_spin=True, replaced=(),
+                   drop_h=()) -> QMModel:
     """The QM model of one pigment residue.
 
     atom_names / atom_elements / atom_coords: the pigment's atoms as read (hydrogens in the input
     are discarded and rebuilt from the CCD). ptype: its :class:`siteshift.structures.library.PigmentType`.
+    replaced: CCD atoms a covalent link replaces (left out, neither rebuilt nor capped: the link
+    partner takes the bond); drop_h: CCD hydrogens left out (a deprotonated group).
     """
     names, elements, ideal, adj = ccd_graph(code)
     elem_of = dict(zip(names, elements))
@@ -125,13 +128,15 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     unknown = []
     for n, e, x in zip(atom_names, atom_elements, atom_coords):
         n = str(n).strip()
+        if n in replaced:
+            continue
         if n in heavy:
             have[n] = np.asarray(x, float)
         elif n in elem_of or str(e).strip().upper() in ("H", "D"):
             continue  # input hydrogens are rebuilt
         else:
             unknown.append(n)
-    missing_core = [a for a in ptype.core if a not in have]
+    missing_core = [a for a in ptype.core if a not in have and a not in replaced]
     if missing_core:
         raise ModelError(f"pigment {pigment_id}: core atom(s) {missing_core} missing from the "
                          "structure; rebuild them (e.g. from the CCD) or remove the pigment from "
@@ -147,7 +152,8 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     # the side of the cut bonds that holds the core, on the CCD graph: what every copy of this
     # pigment type holds. Atoms of it absent from the structure are rebuilt, so a copy missing an
     # ester carbon keeps the formula of its siblings instead of becoming a capped free acid.
-    rebuilt = rebuild_missing(_core_side(ptype.core[0], adj, heavy, cut), have, ideal_of, adj)
+    rebuilt = rebuild_missing(_core_side(ptype.core[0], adj, heavy - set(replaced), cut), have,
+                              ideal_of, adj)
     keep = _core_side(ptype.core[0], adj, heavy, cut, present=have)
     dropped = sorted(heavy - keep)
     out_e, out_x, out_n, out_o = [], [], [], []
@@ -160,7 +166,7 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
         problems.append(f"atom(s) {rebuilt} missing from the structure; rebuilt from the CCD "
                         "ideal geometry superposed on their bonded neighbours")
     for x_name in [n for n in names if n in keep]:
-        hs = [h for h in adj[x_name] if elem_of[h] == "H"]
+        hs = [h for h in adj[x_name] if elem_of[h] == "H" and h not in drop_h]
         heavy_nb = [b for b in adj[x_name] if b in heavy]
         # local frame: the atom and its bonded heavy atoms present in the structure (dropped
         # tail atoms too, so hydrogens follow the structure's own geometry); only when fewer
@@ -181,7 +187,7 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
             out_e.append("H"); out_x.append(have[x_name] + d * v / np.linalg.norm(v))
             out_n.append(h); out_o.append("ccd_h")
         for b in heavy_nb:
-            if b in keep:
+            if b in keep or b in replaced:
                 continue
             # cut or missing neighbour: cap along the bond (the CCD direction if it is missing)
             e_x = elem_of[x_name]
@@ -421,4 +427,77 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6,
                   rebuilt=model.rebuilt, ligands=ligands)
     check_charge_spin(model.pigment_id, out.elements, out.charge, out.multiplicity,
                       "check the axial ligands' protonation or the pigment override")
+    return out
+
+
+#: N–H length of a link partner's proton (Å; common practice)
+LINK_NH_A = 1.01
+
+
+def find_link(ptype, res_atoms, env_atoms):
+    """The first of the library entry's ``links`` found: (link dict, partner atom) when the
+    partner atom of a residue of the link's type lies within max_A of the pigment's link atom;
+    else (None, None)."""
+    for link in ptype.links or ():
+        own = res_atoms[res_atoms.names == link["atom"]]
+        if not len(own) or not len(env_atoms):
+            continue
+        cand = env_atoms[(np.char.upper(np.asarray(env_atoms.resnames).astype(str))
+                          == link["residue"]) & (env_atoms.names == link["partner"])]
+        if not len(cand):
+            continue
+        d = np.linalg.norm(cand.positions - own.positions[0], axis=1)
+        k = int(np.argmin(d))
+        if d[k] <= link["max_A"]:
+            return link, cand[k]
+    return None, None
+
+
+def add_link(model: QMModel, link, partner, env_atoms, fixed_state=False) -> QMModel:
+    """Add the linked residue's atoms (link["keep"], cut at link["cut"] and capped) to a model
+    built with the link's replaced atoms left out; the partner atom gets link["partner_h"]
+    hydrogens (0 or 1: in the plane of its two bonds, bisecting them outwards); the model takes
+    the link's charge unless `fixed_state`."""
+    from types import SimpleNamespace
+    res = partner.residue.atoms & env_atoms
+    rn = str(partner.resname).upper()
+    ch = str(getattr(partner, "chainID", "") or partner.segid).strip() or "_"
+    tag = f"{ch}:{rn}{partner.resid}"
+    lt = SimpleNamespace(core=tuple(link["keep"]), cut_bonds=(tuple(link["cut"]),), charge=0,
+                         multiplicity=1)
+    sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions, lt,
+                         charge=0, multiplicity=1, check_spin=False)
+    _n, _e, _x, adj = ccd_graph(rn)
+    pname = link["partner"]
+    partner_hs = {h for h in adj[pname] if h.startswith("H")}
+    elements, coords = list(model.elements), [*model.coords]
+    names, origin = list(model.names), list(model.origin)
+    for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
+        if n in partner_hs:
+            continue
+        elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
+        origin.append(f"ligand_{o}")
+    px = np.asarray(partner.position, float)
+    pig = model.coords[model.names.index(link["atom"])]
+    bonded = [b for b in adj[pname] if b in sub.names and not b.startswith("H")]
+    if int(link.get("partner_h", 0)) == 1 and bonded:
+        u1 = (pig - px) / np.linalg.norm(pig - px)
+        xb = sub.coords[sub.names.index(bonded[0])]
+        u2 = (xb - px) / np.linalg.norm(xb - px)
+        v = -(u1 + u2)
+        elements.append("H"); coords.append(px + LINK_NH_A * v / np.linalg.norm(v))
+        names.append(f"{tag}:H{pname}"); origin.append("ligand_link_h")
+    arr = ccd_residue(rn)
+    formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
+    q_res = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
+    dist = float(np.linalg.norm(pig - px))
+    charge = model.charge if fixed_state else int(link["charge"])
+    problems = list(model.problems) + [
+        f"linked residue {tag} ({pname}-{link['atom']}, {dist:.2f} A) in QM, charge "
+        f"{q_res:+d} ({link.get('note', '')}; model total {charge:+d})"]
+    out = QMModel(model.pigment_id, model.code, elements, np.array(coords), names, origin,
+                  charge, model.multiplicity, model.dropped, model.missing, problems,
+                  rebuilt=model.rebuilt, ligands=model.ligands)
+    check_charge_spin(model.pigment_id, out.elements, out.charge, out.multiplicity,
+                      f"check the link {link['residue']} {pname} in the pigment library")
     return out

@@ -239,10 +239,10 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     models = {}
     for p in pigs:
         try:
-            m = model_for(p, library)
+            env = atoms[~np.isin(atoms.indices, p.atoms.indices)]
+            m = model_for(p, library, env=env)
             if axial_ligands:
-                m = add_axial_ligands(m, library[p.code],
-                                      atoms[~np.isin(atoms.indices, p.atoms.indices)])
+                m = add_axial_ligands(m, library[p.code], env)
             models[p.id] = (p, m)
         except ValueError as exc:
             log.warning("%s: no QM model (%s); its charges and its shift are left out", p.id,

@@ -135,8 +135,8 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
     library = library or load_library()
     atoms = read_structure(structure, altloc)
     res = find_pigment(atoms, library, pigment_id)
-    model = model_for(res, library, overrides)
     env = atoms[~np.isin(atoms.indices, res.atoms.indices)]
+    model = model_for(res, library, overrides, env=env)
     if axial_ligands:
         ov = (overrides or {}).get(pigment_id, {})
         model = add_axial_ligands(model, library[res.code], env,
