@@ -315,3 +315,75 @@ def test_thioester_chromophore_with_cys_is_a_phenolate(tmp_path, library):
     # the charge the QM model took from the Cys (0) is what the embedding charges remove
     from siteshift.environment.charges import _ligand_charges
     assert _ligand_charges({"problems": row["problems"].split("; ")}) == {"A:CYS216": 0}
+
+
+def _sp2(center, toward, side, angle_deg, length):
+    """A point `length` Å from `center` at `angle_deg` from the direction to `toward`, in the
+    plane holding `side`, on side's side."""
+    a = toward - center
+    a /= np.linalg.norm(a)
+    b = side - center
+    b -= (b @ a) * a
+    b /= np.linalg.norm(b)
+    th = np.radians(angle_deg)
+    return center + length * (np.cos(th) * a + np.sin(th) * b)
+
+
+def test_in_chain_chromophore_is_cut_out_of_the_chain(tmp_path, library):
+    # A GFP-type chromophore in a Ser-CRO-Val peptide (CRO from CCD ideal coordinates; the
+    # neighbours' backbone in trans-peptide geometry, C–N 1.33 Å, C=O 1.23 Å, N–C–O 123°,
+    # N–C–CA 116°, C–N–CA 122°; common practice): CRO is peptide-linking in the CCD, yet with its
+    # library entry it is a pigment; its model is cut at N1-CA1, CB1-CA1 and CA3-C3 to HBDI
+    # (4-hydroxybenzylidene-1,2-dimethylimidazolinone, C12H12N2O2, the usual QM model; common
+    # practice); the peptide bonds to Ser C and Val N are bonds, not clashes. The anionic form
+    # (a study entry dropping the phenol H) is C12H11N2O2-.
+    n, e, x = _ccd_heavy("CRO")
+    X = dict(zip(n, x))
+    # the Ser's C at 122° from CA1 about N1, its O and CA on either side in the peptide plane;
+    # of the choices (every 10° about the N1–CA1 axis), the one farthest from the CRO atoms
+    rest = np.array([xi for a, xi in zip(n, x) if a != "N1"])
+    a = (X["CA1"] - X["N1"]) / np.linalg.norm(X["CA1"] - X["N1"])
+    b1 = np.cross(a, [0.0, 0.0, 1.0])
+    b1 /= np.linalg.norm(b1)
+    b2 = np.cross(a, b1)
+    th = np.radians(122.0)
+    options = []
+    for phi in np.radians(np.arange(0, 360, 10)):
+        c_ser = X["N1"] + 1.33 * (np.cos(th) * a + np.sin(th) * (np.cos(phi) * b1 +
+                                                                  np.sin(phi) * b2))
+        for side in (X["CA1"], 2 * c_ser - X["CA1"]):
+            o_ser = _sp2(c_ser, X["N1"], side, 123.0, 1.23)
+            ser = {"C": c_ser, "O": o_ser,
+                   "CA": _sp2(c_ser, X["N1"], 2 * c_ser - o_ser, 116.0, 1.52)}
+            options.append((min(np.linalg.norm(rest - p, axis=1).min() for p in ser.values()),
+                            ser))
+    ser = max(options, key=lambda o: o[0])[1]
+    n_val = _sp2(X["C3"], X["CA3"], X["OXT"], 116.0, 1.33)
+    val = {"N": n_val, "CA": _sp2(n_val, X["C3"], 2 * n_val - X["CA3"], 122.0, 1.46)}
+    lines = [_line(100 + k, a, " ", "SER", "A", 64, p, 1.0, a[0], rec="ATOM")
+             for k, (a, p) in enumerate(ser.items())]
+    lines += [_line(200 + k, a, " ", "CRO", "A", 66, xi, 1.0, el)
+              for k, (a, el, xi) in enumerate(zip(n, e, x)) if a != "OXT"]
+    lines += [_line(300 + k, a, " ", "VAL", "A", 68, p, 1.0, a[0], rec="ATOM")
+              for k, (a, p) in enumerate(val.items())]
+    atoms = read_structure(_write(tmp_path / "gfp.pdb", lines))
+    row = next(r for r in take_inventory(atoms, library) if r["ccd_code"] == "CRO")
+    assert row["status"] == "ok", row["problems"]
+    assert row["formula_qm"] == "C12H12N2O2" and row["charge"] == 0
+    assert "clash" not in row["problems"]
+    assert row["min_contact_A"] == pytest.approx(1.33, abs=0.01)
+    from siteshift.structures.library import load_library
+    anion = load_library(extra={"CRO": {"charge": -1, "drop_h": ["HOH"]}})
+    row = next(r for r in take_inventory(atoms, anion) if r["ccd_code"] == "CRO")
+    assert row["formula_qm"] == "C12H11N2O2" and row["charge"] == -1
+
+
+def test_residue_classes_come_from_the_ccd(library):
+    # CCD chemical-component types (biotite's offline CCD): modified amino acids (MSE
+    # selenomethionine, SEP phosphoserine, FME formyl-Met) are peptide-linking → protein; a
+    # library chromophore that is peptide-linking (CRO) stays a pigment; DNA nucleotides and
+    # unknown codes are not protein.
+    from siteshift.structures.reading import ccd_link_type, classify
+    assert ccd_link_type("SEP") == "L-PEPTIDE LINKING"
+    assert [classify(c, library) for c in ("MSE", "SEP", "FME", "CRO", "DA", "HOH", "GOL")] \
+        == ["protein", "protein", "protein", "pigment", "unsupported", "water", "additive"]

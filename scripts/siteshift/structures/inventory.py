@@ -5,7 +5,7 @@ import numpy as np
 
 from .qmmodel import (ModelError, add_link, build_qm_model, find_link, ligation_key,
                       metal_donors)
-from .reading import classify, residues_of
+from .reading import classify, is_amino_acid, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",
@@ -20,6 +20,9 @@ CLASH_ACTIONS = ("error", "warn")
 #: short distances to the pigment are not clashes when at least LINK_MIN_A apart
 LINK_ATOMS = {("CYS", "SG"), ("LYS", "NZ"), ("HIS", "NE2"), ("HIS", "ND1"), ("MET", "SD")}
 LINK_MIN_A = 1.2
+#: a backbone C or N of an amino acid this close to a pigment atom is a peptide bond (in-chain
+#: chromophores), not a clash (C–N peptide bond 1.33 Å; common practice)
+PEPTIDE_MAX_A = 1.5
 
 
 def pigment_residues(atoms, library):
@@ -88,6 +91,9 @@ def clashes(atoms, res, clash_A=CLASH_A):
             dist = float(np.linalg.norm(o.position - pig[i].position))
             if (str(o.resname).upper(), str(o.name)) in LINK_ATOMS and dist >= LINK_MIN_A:
                 continue
+            if str(o.name) in ("C", "N") and LINK_MIN_A <= dist <= PEPTIDE_MAX_A and \
+                    is_amino_acid(str(o.resname).upper()):
+                continue      # the peptide bond of an in-chain chromophore
             ch = str(getattr(o, "chainID", "") or o.segid).strip() or "_"
             alt = str(getattr(o, "altLoc", "") or "").strip()
             out.append((str(pig[i].name), f"{ch}:{o.resname}{o.resid} {o.name}"

@@ -29,6 +29,7 @@ class PigmentType:
     band_scheme: str = "axes"     # axes (Qy/Qx) or heme (Q and Soret); see siteshift.qm.bands
     ligation_states: dict = field(default_factory=dict)   # {"HIS+HIS": {charge, multiplicity}}
     links: tuple = ()             # covalent links to a protein residue (see config/pigments.yaml)
+    drop_h: tuple = ()            # CCD hydrogens left out (a deprotonated form)
 
     @property
     def spin(self) -> int:
@@ -78,7 +79,9 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
                       "drop_h": list(ln.get("drop_h") or []),
                       "partner_h": int(ln.get("partner_h", 0)),
                       "max_A": float(ln.get("max_A", 1.9)), "charge": int(ln["charge"])})
-    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, links=tuple(links), name=str(d.get("name", code)), family=d["family"],
+    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, links=tuple(links),
+                       drop_h=tuple(d.get("drop_h") or ()),
+                       name=str(d.get("name", code)), family=d["family"],
                        charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),
                        core=tuple(d["core"]),
                        cut_bonds=tuple(tuple(b) for b in d.get("cut_bonds", []) or []),

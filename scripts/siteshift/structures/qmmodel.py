@@ -121,6 +121,7 @@ def build_qm_model(pigment_id, code, atom_names, atom_elements, atom_coords, pty
     partner takes the bond); drop_h: CCD hydrogens left out (a deprotonated group).
     """
     names, elements, ideal, adj = ccd_graph(code)
+    drop_h = set(drop_h) | set(getattr(ptype, "drop_h", ()) or ())
     elem_of = dict(zip(names, elements))
     ideal_of = dict(zip(names, ideal))
     heavy = {n for n in names if elem_of[n] != "H"}
@@ -278,7 +279,7 @@ def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
     """Every N/O/S atom of the environment within cutoff_A of the pigment's metal, closest
     first: [{"residue": "A:HIS52", "atom": "NE2", "distance_A": 2.01, "kind": "side chain" |
     "water" | "backbone O" | "formyl O" | "ligand"}]. Empty without a metal."""
-    from .reading import AMINO_ACIDS, WATERS
+    from .reading import WATERS, is_amino_acid
     metal = [i for i, e in enumerate(model.elements) if e in METALS]
     if not metal or not len(env_atoms):
         return []
@@ -299,9 +300,9 @@ def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
             kind = "water"
         elif rn == "FME" and name == "O1":
             kind = "formyl O"
-        elif name in ("O", "OXT") and (rn in AMINO_ACIDS or rn == "FME"):
+        elif name in ("O", "OXT") and is_amino_acid(rn):
             kind = "backbone O"
-        elif rn in AMINO_ACIDS or rn == "FME":
+        elif is_amino_acid(rn):
             kind = "side chain"
         else:
             kind = "ligand"

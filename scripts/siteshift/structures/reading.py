@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -312,14 +313,35 @@ def residues_of(atoms):
     return out
 
 
+@lru_cache(maxsize=None)
+def ccd_link_type(code: str) -> str:
+    """The CCD's chemical-component type of a residue code ("L-PEPTIDE LINKING",
+    "NON-POLYMER", "RNA LINKING", ...; offline copy shipped with biotite), "" if unknown."""
+    import biotite.structure.info as info
+    try:
+        return str(info.link_type(code) or "").upper()
+    except (KeyError, ValueError):
+        return ""
+
+
+def is_amino_acid(code: str) -> bool:
+    """A standard or force-field amino-acid name, or a CCD component of peptide-linking type
+    (modified residues: MSE, SEP, TPO, FME, ...)."""
+    return code in AMINO_ACIDS or "PEPTIDE" in ccd_link_type(code)
+
+
 def classify(code: str, library: dict) -> str:
-    """'pigment', 'protein', 'water', 'additive' or 'unsupported' (a ligand not in the library)."""
+    """'pigment', 'protein', 'water', 'additive' or 'unsupported' (a ligand not in the library).
+
+    The library comes first: an in-chain chromophore (CRO, peptide-linking in the CCD) with an
+    entry is a pigment. Then amino acids by name or by the CCD type (peptide-linking components,
+    so modified residues count as protein), waters and additives by name."""
     if code in library:
         return "pigment"
-    if code in AMINO_ACIDS:
-        return "protein"
     if code in WATERS:
         return "water"
+    if is_amino_acid(code):
+        return "protein"
     if code in ADDITIVES:
         return "additive"
     return "unsupported"
