@@ -1,6 +1,7 @@
 """Real-structure chemistry: altlocs per disorder group, the pigment's conformer leading its
 neighbours', clashes, pigments missing atoms (rebuilt from the CCD or flagged partial),
-the donors around a pigment's metal, and chromophores covalently linked to the protein.
+the donors around a pigment's metal, chromophores covalently linked to the protein, and pigments
+at an interface with an assembly copy the file lacks.
 
 The test structures are built here from the wwPDB Chemical Component Dictionary's ideal
 coordinates of bacteriochlorophyll a (CCD code BCL, offline copy shipped with biotite) and from
@@ -387,3 +388,40 @@ def test_residue_classes_come_from_the_ccd(library):
     assert ccd_link_type("SEP") == "L-PEPTIDE LINKING"
     assert [classify(c, library) for c in ("MSE", "SEP", "FME", "CRO", "DA", "HOH", "GOL")] \
         == ["protein", "protein", "protein", "pigment", "unsupported", "water", "additive"]
+
+
+def _biomt(k, rows):
+    return [f"REMARK 350   BIOMT{i + 1} {k:>3d} {r[0]:9.6f} {r[1]:9.6f} {r[2]:9.6f} "
+            f"{r[3]:14.5f}" for i, r in enumerate(rows)]
+
+
+def test_pigment_at_a_missing_assembly_interface_is_flagged(tmp_path, library):
+    # A homodimer deposited as one protomer: REMARK 350 (PDB format, read by gemmi) makes the
+    # unit with a two-fold about z. HC4 A101 (CCD ideal) sits 3 Å off the axis, so the copy's HC4
+    # is within 6 Å: flagged with the operator; HC4 A102, 30 Å off the axis, is not. 19HC's
+    # assembly 1 is the file's own two chains (identity): nothing flagged.
+    from siteshift.structures.inventory import flag_interfaces
+    n, e, x = _ccd_heavy("HC4")
+    x = x - x.mean(0)
+    lines = ["REMARK 350 BIOMOLECULE: 1", "REMARK 350 APPLY THE FOLLOWING TO CHAINS: A"]
+    lines += _biomt(1, [(1, 0, 0, 0), (0, 1, 0, 0), (0, 0, 1, 0)])
+    lines += _biomt(2, [(-1, 0, 0, 0), (0, -1, 0, 0), (0, 0, 1, 0)])
+    for resid, shift in ((101, 3.0), (102, 30.0)):
+        lines += [_line(resid * 10 + k, a, " ", "HC4", "A", resid, xi + [shift, 0, 0], 1.0, el)
+                  for k, (a, el, xi) in enumerate(zip(n, e, x))]
+    path = _write(tmp_path / "protomer.pdb", lines)
+    atoms = read_structure(path)
+    rows = take_inventory(atoms, library)
+    assert flag_interfaces(rows, atoms, library, path, 6.0) == 1
+    near, far = rows
+    assert "assembly 1 operator 2" in near["problems"] and "chain(s) A" in near["problems"]
+    assert near["assembly_interface"].startswith("assembly 1 op 2: ")
+    assert far["assembly_interface"] == "" and "interface" not in far["problems"]
+    assert flag_interfaces(rows, atoms, library, path, 0.0) == 0
+
+
+def test_19hc_assembly_is_the_file(hc19, hc19_path, library):
+    from siteshift.structures.inventory import flag_interfaces
+    rows = take_inventory(hc19, library)
+    assert flag_interfaces(rows, hc19, library, hc19_path, 6.0) == 0
+    assert all(r["assembly_interface"] == "" for r in rows)

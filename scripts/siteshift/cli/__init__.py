@@ -32,11 +32,12 @@ def _library(args):
 
 def cmd_inventory(args):
     from ..structures.reading import read_structure
-    from ..structures.inventory import take_inventory
+    from ..structures.inventory import flag_interfaces, take_inventory
     chosen = {}
     atoms = read_structure(args.structure, args.altloc, report=chosen)
     rows = take_inventory(atoms, _library(args), altlocs=chosen, clash_A=args.clash,
                           on_clash=args.on_clash, rebuild_missing=not args.keep_partial)
+    flag_interfaces(rows, atoms, _library(args), args.structure, args.interface)
     print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc}, per disorder "
           f"group; clashes under {args.clash} A: {args.on_clash})")
     print(f"{'pigment_id':<14s} {'code':<5s} {'chain':<5s} {'resid':>6s} {'atoms':>6s} "
@@ -321,6 +322,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--on-clash", choices=("error", "warn"),
                    default=default("structure_checks.on_clash"),
                    help="a clash makes the pigment an error (default) or a noted problem")
+    iface = default("structure_checks.interface_cutoff_A")
+    p.add_argument("--interface", type=float, default=iface,
+                   help="flag pigments this close (Å) to an assembly copy the file lacks "
+                        f"(default {iface}; 0: off)")
     p.add_argument("--keep-partial", action="store_true",
                    help="flag pigments missing non-core atoms as partial instead of rebuilding "
                         "the atoms from the CCD")

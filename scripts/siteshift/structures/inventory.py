@@ -9,7 +9,8 @@ from .reading import classify, is_amino_acid, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",
-                     "altlocs", "rebuilt_atoms", "min_contact_A", "metal_donors", "problems"]
+                     "altlocs", "rebuilt_atoms", "min_contact_A", "metal_donors",
+                     "assembly_interface", "problems"]
 
 #: heavy atoms of a pigment and of its environment closer than this (Å) clash: two conformer
 #: states mixed, or a misplaced atom (common practice: non-bonded heavy-atom contacts in
@@ -123,7 +124,8 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
         row = {"pigment_id": r.id, "ccd_code": r.code, "chain": r.chain, "resid": r.resid,
                "icode": r.icode, "n_atoms_read": len(r.atoms),
                "n_heavy_read": int(np.sum(~np.isin(elems, ["H", "D"]))),
-               "altlocs": alt.get("altlocs", ""), "rebuilt_atoms": ""}
+               "altlocs": alt.get("altlocs", ""), "rebuilt_atoms": "",
+               "assembly_interface": ""}
         notes = []
         if alt.get("dropped_atoms"):
             notes.append(f"altloc {alt['altlocs']} kept; {alt['dropped_atoms']} neighbour "
@@ -175,7 +177,34 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                      "n_heavy_read": len(r.atoms), "n_atoms_qm": 0, "formula_qm": "",
                      "charge": None, "multiplicity": None, "altlocs": "",
                      "rebuilt_atoms": "", "min_contact_A": None, "metal_donors": "",
+                     "assembly_interface": "",
                      "problems": f"{r.code} is not in the pigment library; add an entry under "
                                  "`pigments:` in the study config to include it"})
     return rows
 
+
+
+def flag_interfaces(rows, atoms, library, path, cutoff_A=6.0, assembly=None):
+    """Note, on each pigment row, the assembly copies missing from the file whose heavy atoms
+    lie within cutoff_A of the pigment (:mod:`siteshift.structures.assembly`); returns the
+    number of pigments flagged. cutoff_A 0: no check."""
+    from .assembly import interface_contacts
+    if not cutoff_A:
+        return 0
+    pigs, _ = pigment_residues(atoms, library)
+    coords = {r.id: r.atoms.positions[~np.isin(_elements(r.atoms), ["H", "D"])] for r in pigs}
+    found = interface_contacts(path, coords, cutoff_A, assembly)
+    for row in rows:
+        hits = found.get(row["pigment_id"], [])
+        row["assembly_interface"] = "; ".join(
+            f"assembly {h['assembly']} op {h['operator']}: {h['n_atoms']} atoms, "
+            f"{h['closest_A']:.1f} A" for h in hits)
+        if hits:
+            h = min(hits, key=lambda h: h["closest_A"])
+            note = (f"interface with a copy of chain(s) {'+'.join(h['chains'])} made by "
+                    f"assembly {h['assembly']} operator {h['operator']} ({h['n_atoms']} heavy "
+                    f"atoms within {cutoff_A} A, closest {h['closest_A']:.1f} A) that the file "
+                    "lacks: burial, ε and charges miss it; give the assembled structure "
+                    "(e.g. gemmi's make_assembly) to include the partner")
+            row["problems"] = "; ".join(p for p in (row["problems"], note) if p)
+    return len(found)

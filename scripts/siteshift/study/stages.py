@@ -20,7 +20,8 @@ from ..qm.scf import build_molecule
 from ..qm.settings import ExciteSettings
 from ..qm.tuning import tune_omega
 from ..qm.warmstart import carried_start, save_orbitals, warm_density
-from ..structures.inventory import INVENTORY_COLUMNS, model_for, pigment_residues, take_inventory
+from ..structures.inventory import (INVENTORY_COLUMNS, flag_interfaces, model_for,
+                                    pigment_residues, take_inventory)
 from ..structures.library import load_library
 from ..structures.qmmodel import QMModel
 from ..structures.reading import StructureError, read_structure
@@ -76,7 +77,13 @@ def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALT
     checks = fill(checks, "structure_checks")
     chosen = {}
     atoms = read_structure(structure, altloc, report=chosen)
+    iface = checks.pop("interface_cutoff_A")
     rows = take_inventory(atoms, library, overrides, altlocs=chosen, **checks)
+    checks["interface_cutoff_A"] = iface
+    n = flag_interfaces(rows, atoms, library, structure, iface)
+    if n:
+        log.warning("%s: %d pigment(s) at an interface with an assembly copy the file lacks "
+                    "(see their problems)", structure, n)
     log.info("%s: %d atoms after altloc policy '%s'; %d pigment(s), %d unsupported ligand(s)",
              structure, len(atoms), altloc, sum(r["status"] != "unsupported" for r in rows),
              sum(r["status"] == "unsupported" for r in rows))
