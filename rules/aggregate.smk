@@ -88,6 +88,11 @@ rule summarize_study:
             caption="../config/report/study_summary.rst",
             category="Tables",
         ),
+        inventory=report(
+            f"{RESULTS}/tables/inventory.tsv",
+            caption="../config/report/inventory.rst",
+            category="Tables",
+        ),
         txt=f"{RESULTS}/summary.txt",
         rst=f"{RESULTS}/summary.rst",
     log:

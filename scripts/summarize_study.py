@@ -15,6 +15,10 @@ variants = sorted(sm.config["variants"])
 inventories = dict(zip(variants, sm.input.inventories))
 tables = {v: pd.read_csv(p, sep="\t", keep_default_na=False) for v, p in inventories.items()}
 warnings = check_study_pigments(sm.config, tables)
+# every variant's inventory in one table, the variant first (what was kept, rebuilt, linked)
+from siteshift.base.io import write_tsv  # noqa: E402
+write_tsv(sm.output.inventory, pd.concat([t.assign(variant=v)[["variant", *t.columns]]
+                                          for v, t in tables.items()], ignore_index=True))
 text = summary_stage(sm.params.study, sm.params.reference, inventories, list(sm.input.results),
                      "results/tables", sm.output.tsv, sm.output.txt, sm.output.rst,
                      codes=set(sm.params.codes or []), warnings=warnings)

@@ -144,6 +144,12 @@ def test_study_summary_and_report(root, study):
     rows = pd.read_csv(study / "results/tables/study_summary.tsv", sep="\t")
     inv = rows[rows.stage == "inventory"]
     assert len(inv) == 4 and set(inv.status) == {"selected"}
+    # the study's inventory table: both variants, every check's column (the demo's pockets have
+    # no altlocs, rebuilt atoms, metal or assembly records; closest contacts 3.0-3.4 Å)
+    table = pd.read_csv(study / "results/tables/inventory.tsv", sep="\t", keep_default_na=False)
+    assert sorted(table.variant) == ["A_I6E", "A_I6E", "wt", "wt"]
+    assert (table.status == "ok").all() and (table.formula_qm == "C9H8O3").all()
+    assert table.min_contact_A.astype(float).between(2.5, 4.0).all()
     site = rows[rows.stage == "site (continuum)"]
     assert len(site) == 4 and (site.time_s > 0).all()
     p = _snakemake(root, study, "--report", "results/report.html")
