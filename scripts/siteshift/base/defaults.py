@@ -33,6 +33,8 @@ QM_PRESETS = {
 FALLBACK_OMEGA = 0.2
 #: states per pigment when neither the config, the preset nor the pigment library says
 DEFAULT_NSTATES = 4
+#: how bands are named (siteshift.qm.bands): Qy/Qx along two axes, or a heme's Q and Soret
+BAND_SCHEMES = ("axes", "heme")
 
 
 @lru_cache(maxsize=None)

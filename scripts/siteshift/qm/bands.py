@@ -30,6 +30,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..base.defaults import BAND_SCHEMES
+
 
 def axis_cosines(dipole, coords, axis):
     """|cos| between a transition dipole and the axis from atom axis[0] to atom axis[1]."""
@@ -51,7 +53,7 @@ SORET_MIN_F = 0.2
 Q_MIN_F = 1e-4
 #: hemes: "in plane" when the dipole's in-plane fraction |d_plane|/|d| is at least this (25°)
 IN_PLANE_MIN = 0.9
-SCHEMES = ("axes", "heme")
+SCHEMES = BAND_SCHEMES
 
 
 def _top_warning(name, s, ordered):

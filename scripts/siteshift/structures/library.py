@@ -53,7 +53,7 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
     for k, v in axes.items():
         if len(v) != 2:
             raise LibraryError(f"{where}: band_axes.{k} must name two atoms, got {list(v)}")
-    from ..qm.bands import SCHEMES
+    from ..base.defaults import BAND_SCHEMES as SCHEMES
     scheme = d.get("band_scheme") or ("heme" if d["family"] == "heme" else "axes")
     if scheme not in SCHEMES:
         raise LibraryError(f"{where}: band_scheme {scheme!r} not one of {SCHEMES}")
