@@ -264,7 +264,7 @@ def test_site_charges_leave_out_the_site_and_keep_ligand_residue_totals(hc19_pat
     # with the axial His side chains in the QM model: those atoms leave, CA is zeroed and the
     # backbone keeps the residue's total less what the QM model took (0 for a neutral His)
     from siteshift.structures.reading import read_structure
-    from siteshift.structures.qmmodel import add_axial_ligands
+    from siteshift.structures.ligands import add_axial_ligands
     from siteshift.study.stages import find_pigment, model_record
     from siteshift.structures.inventory import model_for
     atoms = read_structure(hc19_path)

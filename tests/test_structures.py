@@ -249,7 +249,7 @@ def test_19hc_every_heme_gets_its_two_his_by_default(hc19, library):
     # (charge +1, doublet; config/pigments.yaml ligation_states, sourced there).
     from siteshift.base.defaults import default
     from siteshift.structures.inventory import model_for, pigment_residues
-    from siteshift.structures.qmmodel import add_axial_ligands
+    from siteshift.structures.ligands import add_axial_ligands
     assert default("extract.axial_ligands") is True
     pigs, _ = pigment_residues(hc19, library)
     hemes = [p for p in pigs if p.code == "HEM"]

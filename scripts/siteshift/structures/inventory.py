@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .qmmodel import (ModelError, add_link, build_qm_model, find_link, ligation_key,
-                      metal_donors)
+from .ligands import add_link, find_link, ligation_key, metal_donors
+from .qmmodel import ModelError, build_qm_model
 from .reading import classify, is_amino_acid, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
@@ -74,7 +74,7 @@ def clashes(atoms, res, clash_A=CLASH_A):
     LINK_MIN_A away) are exempt: their short bonds are chemistry."""
     from scipy.spatial import cKDTree
 
-    from .qmmodel import METALS
+    from .ligands import METALS
     own = np.isin(atoms.indices, res.atoms.indices)
     el = _elements(atoms)
     heavy = ~np.isin(el, ["H", "D"])

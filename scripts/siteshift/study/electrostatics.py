@@ -220,7 +220,7 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     chains join each QM model (their charges then leave the embedding set)."""
     from pathlib import Path
 
-    from ..structures.qmmodel import add_axial_ligands
+    from ..structures.ligands import add_axial_ligands
 
     from ..structures.inventory import model_for, pigment_residues
     from ..structures.qmmodel import kabsch

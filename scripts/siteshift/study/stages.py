@@ -138,7 +138,7 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
     library's axial_ligand_atoms); every donor within 2.6 Å is listed in the record's
     ``metal_ligands`` either way.
     """
-    from ..structures.qmmodel import add_axial_ligands, metal_donors
+    from ..structures.ligands import add_axial_ligands, metal_donors
     library = library or load_library()
     atoms = read_structure(structure, altloc)
     res = find_pigment(atoms, library, pigment_id)
