@@ -270,6 +270,24 @@ def test_damped_ladder_step_damps():
     assert not np.allclose(f, damped)
 
 
+def test_metal_molecules_start_with_the_second_order_step():
+    # Fe (d block) starts with PySCF's second-order solver (the heme measurement in
+    # siteshift.qm.scf); Mg (s block, chlorophylls) and organic molecules keep DIIS first. The
+    # second-order step reaches the same SCF energy as DIIS on water (to 1e-8 Eh).
+    from pyscf import gto
+    from siteshift.qm.scf import SCF_LADDER, ladder_for
+    fe = gto.M(atom="Fe 0 0 0; C 0 0 1.8; O 0 0 2.95", basis="sto-3g", spin=0, verbose=0)
+    mg = gto.M(atom="Mg 0 0 0; O 0 0 1.75", basis="sto-3g", verbose=0)
+    assert [n for n, _a in ladder_for(fe)][0] == "second_order"
+    assert ladder_for(mg) == SCF_LADDER and SCF_LADDER[0][0] == "diis"
+    s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
+    mol = build_molecule(*WATER, basis="sto-3g")
+    e_diis = run_scf(make_scf(mol, s))[0].e_tot
+    newton = make_scf(mol, s).newton()
+    newton.conv_tol = 1e-10
+    assert newton.kernel() == pytest.approx(e_diis, abs=1e-8)
+
+
 @pytest.mark.slow
 def test_fast_equals_stock_on_chromophore_full_accuracy():
     # A 20-atom chromophore (HC4 from CCD ideal coordinates) at the full preset (def2-SVP, grid 3,
