@@ -193,6 +193,13 @@ def test_missing_tail_atom_rebuilt_from_ccd(hc19, library):
     m = model_for(res, library)
     assert m.origin[m.names.index("CMB")] == "rebuilt"
     assert np.linalg.norm(m.coords[m.names.index("CMB")] - true) < 0.3
+    # CAA, the stem of a propionate cut away (CAA–CBA): placed from the ring, not from the
+    # flexible tail still in the file (fitted with the tail it landed 1.5–2.4 Å off)
+    sel_caa = sel & (hc19.names == "CAA")
+    res2 = next(r for r in pigment_residues(hc19[~sel_caa], library)[0] if r.id == "A_HEM301")
+    m2 = model_for(res2, library)
+    assert m2.rebuilt == ["CAA"]
+    assert np.linalg.norm(m2.coords[m2.names.index("CAA")] - hc19[sel_caa].positions[0]) < 0.3
     partial = next(r for r in take_inventory(cut, library, rebuild_missing=False)
                    if r["pigment_id"] == "A_HEM301")
     assert partial["status"] == "partial" and "['CMB']" in partial["problems"]

@@ -227,7 +227,7 @@ def rebuild_missing(wanted, have, ideal_of, adj):
     """Place the atoms of `wanted` absent from `have` (dict name -> Å, updated in place) from
     the CCD ideal coordinates, growing outwards from the present atoms: each atom bonded to a
     present one is placed by a least-squares superposition (Kabsch) of the CCD ideal geometry on
-    the present atoms within three bonds of it (at least three of them). Returns the names placed,
+    the present atoms of `wanted` within three bonds of it (at least three). Returns the names placed,
     in CCD order of placement."""
     placed = []
     todo = [n for n in ideal_of if n in wanted and n not in have]
@@ -240,9 +240,11 @@ def rebuild_missing(wanted, have, ideal_of, adj):
             for _ in range(3):
                 ring = {c for a in ring for c in adj[a]} - shell
                 shell |= ring
-            ref = [a for a in ideal_of if a in shell and a in have]
+            # anchors on the kept side only: a flexible dropped tail (a propionate) fitted with
+            # the ring misplaces its stem atom by up to 2.4 Å (19HC CAA); the ring alone: 0.1 Å
+            ref = [a for a in ideal_of if a in shell and a in have and a in wanted]
             if len(ref) < 3:
-                ref = [a for a in ideal_of if a in have]
+                ref = [a for a in ideal_of if a in have and a in wanted]
             R, t = kabsch(np.array([ideal_of[a] for a in ref]), np.array([have[a] for a in ref]))
             have[n] = ideal_of[n] @ R + t
             placed.append(n)
