@@ -35,9 +35,10 @@ def cmd_inventory(args):
     from ..structures.inventory import flag_interfaces, take_inventory
     chosen = {}
     atoms = read_structure(args.structure, args.altloc, report=chosen)
-    rows = take_inventory(atoms, _library(args), altlocs=chosen, clash_A=args.clash,
+    library = _library(args)
+    rows = take_inventory(atoms, library, altlocs=chosen, clash_A=args.clash,
                           on_clash=args.on_clash, rebuild_missing=not args.keep_partial)
-    flag_interfaces(rows, atoms, _library(args), args.structure, args.interface)
+    flag_interfaces(rows, atoms, library, args.structure, args.interface)
     print(f"{args.structure}: {len(atoms)} atoms (altloc policy {args.altloc}, per disorder "
           f"group; clashes under {args.clash} A: {args.on_clash})")
     print(f"{'pigment_id':<14s} {'code':<5s} {'chain':<5s} {'resid':>6s} {'atoms':>6s} "

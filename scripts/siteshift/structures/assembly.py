@@ -62,11 +62,11 @@ def interface_contacts(path, pigment_coords: dict, cutoff_A=6.0, assembly=None) 
     for op, chains, cx in copies:
         tree = cKDTree(cx)
         for pid, px in pigment_coords.items():
-            d, _i = tree.query(np.asarray(px, float), distance_upper_bound=cutoff_A)
-            near = np.isfinite(d)
-            if near.any():
-                n = len({j for hits in tree.query_ball_point(px, cutoff_A) for j in hits})
+            px = np.asarray(px, float)
+            hits = sorted({j for near in tree.query_ball_point(px, cutoff_A) for j in near})
+            if hits:
+                d = np.linalg.norm(cx[hits][:, None] - px[None], axis=-1).min()
                 out.setdefault(pid, []).append({"assembly": name, "operator": op,
-                                                "chains": chains, "n_atoms": n,
-                                                "closest_A": round(float(d[near].min()), 2)})
+                                                "chains": chains, "n_atoms": len(hits),
+                                                "closest_A": round(float(d), 2)})
     return out

@@ -67,29 +67,34 @@ def _elements(ag):
         ag.elements if hasattr(ag, "elements") else ag.types).astype(str)))
 
 
-def clashes(atoms, res, clash_A=CLASH_A):
+def heavy_index(atoms):
+    """(heavy atoms, KD-tree of their positions) of a structure: built once per inventory and
+    shared by every pigment's clash check."""
+    from scipy.spatial import cKDTree
+    heavy = atoms[~np.isin(_elements(atoms), ["H", "D"])]
+    return heavy, cKDTree(heavy.positions)
+
+
+def clashes(atoms, res, clash_A=CLASH_A, index=None):
     """Heavy-atom pairs of a pigment residue and everything else closer than clash_A:
     [(pigment atom, other residue and atom, distance Å)] plus the closest such distance (None if
     no heavy atom is within 4 Å). The pigment's metal and the link atoms of LINK_ATOMS (at least
-    LINK_MIN_A away) are exempt: their short bonds are chemistry."""
-    from scipy.spatial import cKDTree
-
+    LINK_MIN_A away) are exempt: their short bonds are chemistry. index: :func:`heavy_index` of
+    `atoms` (built here if not given)."""
     from .ligands import METALS
-    own = np.isin(atoms.indices, res.atoms.indices)
-    el = _elements(atoms)
-    heavy = ~np.isin(el, ["H", "D"])
-    env = atoms[~own & heavy]
-    pig = atoms[own & heavy & ~np.isin(el, list(METALS))]
-    if not len(env) or not len(pig):
-        return [], None
-    tree = cKDTree(env.positions)
-    d, j = tree.query(pig.positions, distance_upper_bound=4.0)
-    closest = float(d.min()) if np.isfinite(d).any() else None
-    out = []
-    for i, hits in enumerate(tree.query_ball_point(pig.positions, clash_A)):
+    heavy, tree = index or heavy_index(atoms)
+    own = np.isin(heavy.indices, res.atoms.indices)
+    pig = heavy[own & ~np.isin(_elements(heavy), list(METALS))]
+    out, closest = [], None
+    for p, hits in zip(pig, tree.query_ball_point(pig.positions, 4.0)):
         for h in hits:
-            o = env[h]
-            dist = float(np.linalg.norm(o.position - pig[i].position))
+            if own[h]:
+                continue
+            o = heavy[h]
+            dist = float(np.linalg.norm(o.position - p.position))
+            closest = dist if closest is None else min(closest, dist)
+            if dist >= clash_A:
+                continue
             if (str(o.resname).upper(), str(o.name)) in LINK_ATOMS and dist >= LINK_MIN_A:
                 continue
             if str(o.name) in ("C", "N") and LINK_MIN_A <= dist <= PEPTIDE_MAX_A and \
@@ -97,11 +102,10 @@ def clashes(atoms, res, clash_A=CLASH_A):
                 continue      # the peptide bond of an in-chain chromophore
             ch = str(getattr(o, "chainID", "") or o.segid).strip() or "_"
             alt = str(getattr(o, "altLoc", "") or "").strip()
-            out.append((str(pig[i].name), f"{ch}:{o.resname}{o.resid} {o.name}"
+            out.append((str(p.name), f"{ch}:{o.resname}{o.resid} {o.name}"
                         + (f" (altloc {alt})" if alt else ""), round(dist, 2)))
     out.sort(key=lambda c: c[2])
-    free = [c[2] for c in out]
-    return out, (min(free) if free else closest)
+    return out, (out[0][2] if out else closest)
 
 
 def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A,
@@ -117,6 +121,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
     if on_clash not in CLASH_ACTIONS:
         raise ValueError(f"on_clash {on_clash!r} not one of {CLASH_ACTIONS}")
     pigs, unsup = pigment_residues(atoms, library)
+    index = heavy_index(atoms) if pigs else None
     rows = []
     for r in pigs:
         elems = _elements(r.atoms)
@@ -131,7 +136,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
             notes.append(f"altloc {alt['altlocs']} kept; {alt['dropped_atoms']} neighbour "
                          f"atom(s) present only in state(s) {alt['rejected'] or 'other'} "
                          "dropped")
-        found, closest = clashes(atoms, r, clash_A)
+        found, closest = clashes(atoms, r, clash_A, index)
         row["min_contact_A"] = None if closest is None else round(closest, 2)
         clash = ""
         if found:

@@ -38,7 +38,6 @@ def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
             continue
         a = env_atoms[int(k)]
         rn, name = str(a.resname).upper(), str(a.name)
-        ch = str(getattr(a, "chainID", "") or a.segid).strip() or "_"
         if rn in WATERS:
             kind = "water"
         elif rn == "FME" and name == "O1":
@@ -49,9 +48,43 @@ def metal_donors(model: QMModel, env_atoms, cutoff_A=2.6):
             kind = "side chain"
         else:
             kind = "ligand"
-        out.append({"residue": f"{ch}:{rn}{a.resid}", "atom": name,
+        out.append({"residue": _residue_tag(a), "atom": name,
                     "distance_A": round(float(d[k]), 3), "kind": kind, "_atom": a})
     return out
+
+
+def _residue_tag(atom) -> str:
+    """``CHAIN:RESNNN`` of an MDAnalysis atom (the names ligand atoms carry in a QM model)."""
+    ch = str(getattr(atom, "chainID", "") or atom.segid).strip() or "_"
+    return f"{ch}:{str(atom.resname).upper()}{atom.resid}"
+
+
+def _joins_qm(allowed, rn, atom) -> bool:
+    """Whether a donor atom's residue enters the QM model: the library's axial_ligand_atoms
+    allow it (waters under HOH) and a fragment rule covers it."""
+    from .reading import WATERS
+    water = rn in WATERS
+    ok = atom in allowed.get(rn, ()) or (water and atom in allowed.get("HOH", ()))
+    return ok and (water or rn in LIGAND_SIDE_CHAINS)
+
+
+def _fragment(res_atoms, rn, tag, keep, cut, drop_h_of):
+    """A protein residue cut to the atoms `keep` (bond `cut` = [kept, dropped] capped), its CCD
+    hydrogens placed, those on atom `drop_h_of` left out. Returns (atoms, formal charge, dropped
+    protons, sub-model): atoms as (element, Å, ``TAG:NAME``, ``ligand_<origin>``); the formal
+    charge sums the CCD charges of the residue atoms kept."""
+    from types import SimpleNamespace
+    lt = SimpleNamespace(core=tuple(keep), cut_bonds=(tuple(cut),), charge=0, multiplicity=1)
+    sub = build_qm_model(tag, rn, list(res_atoms.names), list(res_atoms.elements),
+                         res_atoms.positions, lt, charge=0, multiplicity=1, check_spin=False)
+    drop = {h for h in ccd_graph(rn)[3][drop_h_of] if h.startswith("H")}
+    arr = ccd_residue(rn)
+    formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
+    q = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
+    atoms = [(e, x, f"{tag}:{n}", f"ligand_{o}")
+             for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin)
+             if n not in drop]
+    return atoms, q, sum(n in drop for n in sub.names), sub
 
 
 def ligation_key(ptype, donors) -> str:
@@ -63,10 +96,8 @@ def ligation_key(ptype, donors) -> str:
     seen = {}
     for d in donors:
         rn = d["residue"].split(":", 1)[1].rstrip("0123456789-")
-        water = rn in WATERS
-        ok = d["atom"] in allowed.get(rn, ()) or (water and d["atom"] in allowed.get("HOH", ()))
-        if ok and (water or rn in LIGAND_SIDE_CHAINS):
-            seen.setdefault(d["residue"], "HOH" if water else rn)
+        if _joins_qm(allowed, rn, d["atom"]):
+            seen.setdefault(d["residue"], "HOH" if rn in WATERS else rn)
     return "+".join(sorted(seen.values()))
 
 
@@ -101,8 +132,6 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6,
     the ligands added (e.g. HIS+HIS → Fe(III) low spin for HEM), unless `fixed_state` (a
     pigment override gave them).
     """
-    from types import SimpleNamespace
-
     from .reading import WATERS
     donors = metal_donors(model, env_atoms, cutoff_A)
     if not donors:
@@ -118,12 +147,11 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6,
         rn, tag, lig_atom, dist = str(a.resname).upper(), dn["residue"], dn["atom"], \
             dn["distance_A"]
         water = rn in WATERS
-        ok = lig_atom in allowed.get(rn, ()) or (water and lig_atom in allowed.get("HOH", ()))
         if tag in seen:
             dn.update(in_qm=True, note="residue already in the QM model")
             ligands.append(dn)
             continue
-        if not ok or not (water or rn in LIGAND_SIDE_CHAINS):
+        if not _joins_qm(allowed, rn, lig_atom):
             why = (f"not among the library's axial_ligand_atoms for {model.code}"
                    if rn in LIGAND_SIDE_CHAINS or water else f"no fragment rule for a {dn['kind']}")
             dn.update(in_qm=False, note=why)
@@ -137,22 +165,11 @@ def add_axial_ligands(model: QMModel, ptype, env_atoms, cutoff_A=2.6,
             elements += e3; coords += x3; names += n3; origin += o3
             q = 0
         else:
-            res = a.residue.atoms & env_atoms
-            lt = SimpleNamespace(core=tuple(LIGAND_SIDE_CHAINS[rn]), cut_bonds=(("CB", "CA"),),
-                                 charge=0, multiplicity=1)
-            sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions,
-                                 lt, charge=0, multiplicity=1, check_spin=False)
-            _n, _e, _x, adj = ccd_graph(rn)
-            drop_h = {h for h in adj[lig_atom] if h.startswith("H")}
-            arr = ccd_residue(rn)
-            formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
-            q = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
-            q -= sum(1 for n in sub.names if n in drop_h)
-            for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
-                if n in drop_h:
-                    continue
-                elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
-                origin.append(f"ligand_{o}")
+            frag, q, n_h, _sub = _fragment(a.residue.atoms & env_atoms, rn, tag,
+                                           LIGAND_SIDE_CHAINS[rn], ("CB", "CA"), lig_atom)
+            q -= n_h      # the coordinating atom's protons leave (His → neutral, Cys → thiolate)
+            for e, x, n, o in frag:
+                elements.append(e); coords.append(x); names.append(n); origin.append(o)
         charge += q
         dn.update(in_qm=True, note=f"charge {q:+d}")
         ligands.append(dn)
@@ -202,28 +219,18 @@ def add_link(model: QMModel, link, partner, env_atoms, fixed_state=False) -> QMM
     built with the link's replaced atoms left out; the partner atom gets link["partner_h"]
     hydrogens (0 or 1: in the plane of its two bonds, bisecting them outwards); the model takes
     the link's charge unless `fixed_state`."""
-    from types import SimpleNamespace
-    res = partner.residue.atoms & env_atoms
     rn = str(partner.resname).upper()
-    ch = str(getattr(partner, "chainID", "") or partner.segid).strip() or "_"
-    tag = f"{ch}:{rn}{partner.resid}"
-    lt = SimpleNamespace(core=tuple(link["keep"]), cut_bonds=(tuple(link["cut"]),), charge=0,
-                         multiplicity=1)
-    sub = build_qm_model(tag, rn, list(res.names), list(res.elements), res.positions, lt,
-                         charge=0, multiplicity=1, check_spin=False)
-    _n, _e, _x, adj = ccd_graph(rn)
+    tag = _residue_tag(partner)
     pname = link["partner"]
-    partner_hs = {h for h in adj[pname] if h.startswith("H")}
+    frag, q_res, _n_h, sub = _fragment(partner.residue.atoms & env_atoms, rn, tag, link["keep"],
+                                       link["cut"], pname)
     elements, coords = list(model.elements), [*model.coords]
     names, origin = list(model.names), list(model.origin)
-    for e, x, n, o in zip(sub.elements, sub.coords, sub.names, sub.origin):
-        if n in partner_hs:
-            continue
-        elements.append(e); coords.append(x); names.append(f"{tag}:{n}")
-        origin.append(f"ligand_{o}")
+    for e, x, n, o in frag:
+        elements.append(e); coords.append(x); names.append(n); origin.append(o)
     px = np.asarray(partner.position, float)
     pig = model.coords[model.names.index(link["atom"])]
-    bonded = [b for b in adj[pname] if b in sub.names and not b.startswith("H")]
+    bonded = [b for b in ccd_graph(rn)[3][pname] if b in sub.names and not b.startswith("H")]
     if int(link.get("partner_h", 0)) == 1 and bonded:
         u1 = (pig - px) / np.linalg.norm(pig - px)
         xb = sub.coords[sub.names.index(bonded[0])]
@@ -231,9 +238,6 @@ def add_link(model: QMModel, link, partner, env_atoms, fixed_state=False) -> QMM
         v = -(u1 + u2)
         elements.append("H"); coords.append(px + LINK_NH_A * v / np.linalg.norm(v))
         names.append(f"{tag}:H{pname}"); origin.append("ligand_link_h")
-    arr = ccd_residue(rn)
-    formal = {str(n): int(c) for n, c in zip(arr.atom_name, arr.charge)}
-    q_res = sum(formal.get(n, 0) for n, o in zip(sub.names, sub.origin) if o == "structure")
     dist = float(np.linalg.norm(pig - px))
     charge = model.charge if fixed_state else int(link["charge"])
     problems = list(model.problems) + [

@@ -77,10 +77,9 @@ def inventory_stage(structure, out_tsv, out_json=None, library=None, altloc=_ALT
     checks = fill(checks, "structure_checks")
     chosen = {}
     atoms = read_structure(structure, altloc, report=chosen)
-    iface = checks.pop("interface_cutoff_A")
-    rows = take_inventory(atoms, library, overrides, altlocs=chosen, **checks)
-    checks["interface_cutoff_A"] = iface
-    n = flag_interfaces(rows, atoms, library, structure, iface)
+    rows = take_inventory(atoms, library, overrides, altlocs=chosen, clash_A=checks["clash_A"],
+                          on_clash=checks["on_clash"], rebuild_missing=checks["rebuild_missing"])
+    n = flag_interfaces(rows, atoms, library, structure, checks["interface_cutoff_A"])
     if n:
         log.warning("%s: %d pigment(s) at an interface with an assembly copy the file lacks "
                     "(see their problems)", structure, n)
