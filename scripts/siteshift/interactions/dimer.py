@@ -79,20 +79,34 @@ def model_pair(e_a, e_b, j_cm1) -> tuple[float, float]:
 
 
 def excite_dimer(site_a, site_b, settings, response_a, response_b, state_a, state_b,
-                 log=None, nstates=None):
+                 log=None, nstates=None, fragment_start_on=True):
     """Supermolecular TDA of two sites ((elements, coords Å, charge) each, singlets) with the
     monomers' own responses (dicts with mo_coeff, mo_occ, xs and their energies_ev) for the
-    pair analysis; state_a/state_b: 0-based monomer states. Returns (analysis, dimer result)."""
+    pair analysis; state_a/state_b: 0-based monomer states. Returns (analysis, dimer result).
+
+    The dimer's SCF starts from the monomers' converged orbitals (computed with the same
+    settings: :func:`siteshift.qm.warmstart.fragment_start`; ``fragment_start_on=False``: PySCF's
+    default guess); the start is recorded in the result's ``scf_start``."""
     from dataclasses import replace
 
     from ..qm.excite import excite
     from ..qm.scf import build_molecule
+    from ..qm.warmstart import fragment_start
     (el_a, xa, qa), (el_b, xb, qb) = site_a, site_b
     elements = list(el_a) + list(el_b)
     coords = np.vstack([np.asarray(xa, float), np.asarray(xb, float)])
     s = replace(settings, nstates=int(nstates or 2 * settings.nstates))
-    res = excite(elements, coords, qa + qb, 0, s, log=log, keep_response=True)
-    mol = build_molecule(elements, coords, qa + qb, 0, s.basis)
+    mol = build_molecule(elements, coords, qa + qb, 0, s.basis, s.max_memory_mb)
+    dm0, start = None, {"kind": "cold", "reason": "fragment start switched off"}
+    if fragment_start_on:
+        dm0, start = fragment_start(
+            mol, [(r["mo_coeff"], r["mo_occ"]) for r in (response_a, response_b)],
+            "the monomers' converged orbitals (block-diagonal, Löwdin-orthonormalised)")
+    if log:
+        log(f"dimer SCF start {start['kind']}: "
+            + (start["source"] if start["kind"] == "warm" else start["reason"]))
+    res = excite(elements, coords, qa + qb, 0, s, log=log, keep_response=True, dm0=dm0,
+                 start=start)
     nao_a = int(mol.aoslice_by_atom()[len(el_a) - 1, 3])   # A's functions come first
     mono = [transition_densities(r["mo_coeff"], r["mo_occ"], r["xs"][[k]], symmetric=False)[0]
             for r, k in ((response_a, state_a), (response_b, state_b))]

@@ -343,12 +343,14 @@ class _EarlyCycles:
 
 
 def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
-    """Run an SCF through the fallback ladder; return (mf, step_name, cycles) or raise.
+    """Run an SCF through the fallback ladder; return (mf, step_name, cycles) or raise; cycles
+    counts every step's (macro) cycles, those of the steps left unconverged included.
 
     mixed_precision: float32 exchange until the orbital gradient is below K_FLOAT64_BELOW (only
     for in-core CompactDF tensors)."""
     dm = dm0
     tried = []
+    total = 0    # cycles of every step tried: a stalled DIIS's cycles cost as much as any
     ladder = ladder_for(mf.mol)
     for name, attrs in ladder:
         if attrs is None:
@@ -374,6 +376,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
             if early is not None:
                 early.restore()
         tried.append(name)
+        total += len(cycles)
         if log:
             mixed = early.describe() if early is not None else ""
             why = f", left early: {stalled}" if stalled else ""
@@ -381,7 +384,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
             log(f"SCF step '{name}': converged={solver.converged}{energy} "
                 f"after {len(cycles)} cycles{mixed}{why}")
         if solver.converged:
-            return solver, name, len(cycles)
+            return solver, name, total
         dm = stalled.dm if stalled else solver.make_rdm1()
     raise EngineError(f"SCF did not converge after the fallback ladder {tried}; try a smaller "
                       "basis, a different charge/multiplicity, or check the geometry for clashes")
