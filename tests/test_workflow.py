@@ -245,6 +245,14 @@ def test_coupling_outputs(study):
     assert (d[["charge_transfer_lower", "charge_transfer_upper"]] < 0.05).all().all()
     assert (d.splitting_cm1 > 0).all()
     assert (d.splitting_cm1 <= 1.2 * d.model_splitting_cm1 + 5.0).all()
+    # the dimer's SCF started from its monomers' orbitals; over the sweep, the monomers of the
+    # second point from the first point's
+    import json
+    dj = json.loads((study / "results/wt/dimers/pocket-pair.json").read_text())
+    assert dj["dimer_result"]["scf_start"]["kind"] == "warm"
+    assert "monomers" in dj["dimer_result"]["scf_start"]["source"]
+    sw = json.loads((study / "results/wt/dimers/pocket-pair.eps_sweep.json").read_text())
+    assert [p["scf_start"] for p in sw["points"]] == ["warm", "warm"]
 
 
 def test_ion_outputs(study):

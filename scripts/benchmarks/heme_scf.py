@@ -32,7 +32,8 @@ def main(argv=None):
     ap.add_argument("--basis", default="sto-3g")
     ap.add_argument("--grid-level", type=int, default=0)
     ap.add_argument("--xc", choices=("pbe", "srsh"), default="pbe")
-    ap.add_argument("--modes", default="diis,newton", help="diis, newton (comma-separated)")
+    ap.add_argument("--modes", default="diis,newton",
+                    help="diis, newton, ladder (siteshift's run_scf; comma-separated)")
     ap.add_argument("--max-cycle", type=int, default=40)
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--out", default=str(HERE / "records" / "heme_scf.tsv"))
@@ -40,7 +41,7 @@ def main(argv=None):
     import numpy as np
 
     from response_speed import append_rows, provenance
-    from siteshift.qm.scf import build_molecule, make_scf
+    from siteshift.qm.scf import build_molecule, make_scf, run_scf
     from siteshift.qm.settings import ExciteSettings, configure_threads
     from siteshift.structures.inventory import model_for, pigment_residues
     from siteshift.structures.library import load_library
@@ -63,9 +64,29 @@ def main(argv=None):
         mf = make_scf(mol, s, solvated=False)
         if args.xc == "pbe":
             mf.xc = "pbe"
-        mf = mf.newton() if mode == "newton" else mf
         mf.max_cycle, mf.conv_tol = args.max_cycle, 1e-7
         trace = []
+        if mode == "ladder":   # siteshift's run_scf: the ladder it gives this molecule
+            t = time.perf_counter()
+
+            def log(m, t0=t):
+                print(f"  ladder {time.perf_counter() - t0:6.0f} s {m}", flush=True)
+                if "' cycle " in m:
+                    trace.append((float(m.split("E=")[1].split()[0]),
+                                  float(m.split("|g|=")[1].split(",")[0])))
+            mf, step, _n = run_scf(mf, log=log, max_cycle=args.max_cycle)
+            wall = time.perf_counter() - t
+            rows.append({"date": time.strftime("%Y-%m-%d"), "pigment": args.pigment,
+                         "state": args.state, "basis": args.basis, "grid": args.grid_level,
+                         "xc": args.xc, "mode": f"ladder ({step})",
+                         "converged": bool(mf.converged), "cycles": len(trace),
+                         "e_final_eh": round(float(mf.e_tot), 6),
+                         "e_min_eh": round(min(e for e, _g in trace), 6),
+                         "g_final": trace[-1][1], "wall_s": round(wall, 1),
+                         "threads": args.threads, **prov})
+            print(rows[-1], flush=True)
+            continue
+        mf = mf.newton() if mode == "newton" else mf
 
         def cb(env, trace=trace, t0=time.perf_counter()):
             trace.append((env["e_tot"], env.get("norm_gorb")))

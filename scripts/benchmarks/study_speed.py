@@ -49,8 +49,12 @@ def _settings(args, eps, stock=False):
     s = ExciteSettings(basis=args.basis, grid_level=args.grid_level, omega=args.omega,
                        eps_static=eps, eps_optical=min(2.0, eps), nstates=args.nstates,
                        max_memory_mb=args.max_memory)
+    s.pcm_fit = args.pcm_fit
+    if args.lebedev:
+        s.lebedev_order = args.lebedev
     if stock:
         s.df_storage = "pyscf"
+        s.pcm_fit = False
     return s
 
 
@@ -211,6 +215,10 @@ def main():
     ap.add_argument("--omega", type=float, default=0.22)
     ap.add_argument("--jitter", type=float, default=0.05, help="Å RMS of the second copy")
     ap.add_argument("--nstates", type=int, default=3)
+    ap.add_argument("--pcm-fit", action="store_true",
+                    help="PCM potentials from the fitted density (qm.pcm_fit; fast and warm)")
+    ap.add_argument("--lebedev", type=int, default=None,
+                    help="Lebedev order of the PCM surface (default: the full preset's)")
     ap.add_argument("--ions", action="store_true", help="neutral/cation/anion SCFs per site")
     ap.add_argument("--dimer", action="store_true", help="the two copies whole, first ε")
     ap.add_argument("--no-stock", action="store_true", help="skip PySCF's stock path")
@@ -277,6 +285,7 @@ def main():
          else None) for j, e in zip(df.job, df._e)]
     df = df.drop(columns="_e")
     stamp = {"system": args.system, "basis": args.basis, "grid_level": args.grid_level,
+             "pcm_fit": args.pcm_fit, "lebedev_order": _settings(args, 4.0).lebedev_order,
              "eps": args.eps, "jitter_A": args.jitter, "threads": args.threads,
              "host": platform.node()[:12], "date": time.strftime("%Y-%m-%d %H:%M"), **prov}
     for k, v in stamp.items():
