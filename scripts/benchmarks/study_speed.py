@@ -39,7 +39,8 @@ sys.path.insert(0, str(HERE.parents[1] / "scripts"))
 sys.path.insert(0, str(HERE))
 
 from response_speed import append_rows, provenance, system  # noqa: E402
-from warm_start import second_copy  # noqa: E402
+from siteshift.base.units import HARTREE2EV  # noqa: E402
+from warm_start import add_site_args, second_copy  # noqa: E402
 
 WAYS = ("cold", "warm", "stock")
 
@@ -83,7 +84,7 @@ def site_job(args, geo, eps, way, start, save):
         t1 = time.perf_counter()
         e, *_ = stock_response(mf, s)
         return {"scf_s": t1 - t0, "response_s": time.perf_counter() - t1, "scf_cycles": cycles,
-                "energies_ev": sorted(np.asarray(e) * 27.211386245988),
+                "energies_ev": sorted(np.asarray(e) * HARTREE2EV),
                 "scf_energy_hartree": float(mf.e_tot), "start": "cold"}
     dm0 = how = None
     if start is not None:
@@ -129,7 +130,7 @@ def ion_job(args, geo, eps, way, site_npz):
                      start={"kind": "warm", "source": "the site's density"} if dm0 is not None
                      else None)
     sc = out["scf"]
-    ev = 27.211386245988
+    ev = HARTREE2EV
     return {"scf_s": sum(v["time_s"] for v in sc.values()),
             **{f"{k}_s": round(v["time_s"], 2) for k, v in sc.items()},
             **{f"{k}_cycles": v["cycles"] for k, v in sc.items()},
@@ -151,8 +152,8 @@ def dimer_job(args, eps, way, npz_a, npz_b, geo_a, geo_b):
         z = np.load(f)
         resp.append({k: z[k] for k in ("mo_coeff", "mo_occ", "xs", "energies_ev")})
     t0 = time.perf_counter()
-    out, res = excite_dimer((el, geo_a, 0), (el, geo_b, 0), s, resp[0], resp[1], 0, 0,
-                            fragment_start_on=way == "warm")
+    _out, res = excite_dimer((el, geo_a, 0), (el, geo_b, 0), s, resp[0], resp[1], 0, 0,
+                             fragment_start_on=way == "warm")
     return {"scf_s": res["timings_s"]["scf"], "response_s": res["timings_s"].get("response"),
             "wall_inner_s": time.perf_counter() - t0, "scf_cycles": res["scf_cycles"],
             "scf_energy_hartree": res["scf_energy_hartree"],
@@ -209,12 +210,7 @@ def in_child(fn, fargs, threads, timeout=None):
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--system", default="hc4", choices=["hc4", "bcl"])
-    ap.add_argument("--basis", default="6-31g")
-    ap.add_argument("--grid-level", type=int, default=1)
-    ap.add_argument("--eps", default="4,12", help="site ε_static values (ε_optical 2)")
-    ap.add_argument("--omega", type=float, default=0.22)
-    ap.add_argument("--jitter", type=float, default=0.05, help="Å RMS of the second copy")
-    ap.add_argument("--nstates", type=int, default=3)
+    add_site_args(ap)
     ap.add_argument("--pcm-fit", action="store_true",
                     help="PCM potentials from the fitted density (qm.pcm_fit; fast and warm)")
     ap.add_argument("--lebedev", type=int, default=None,

@@ -49,15 +49,21 @@ def second_copy(xyz, jitter, seed=7):
     return (xyz + noise) @ R.T + np.array([12.0, 0.0, 0.0])
 
 
-def main():
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--systems", default="hc4")
+def add_site_args(ap):
+    """The options naming a type's sites (basis, grid, ε values, ω, the second copy's jitter,
+    states), shared with study_speed.py."""
     ap.add_argument("--basis", default="6-31g")
     ap.add_argument("--grid-level", type=int, default=1)
     ap.add_argument("--eps", default="4,12", help="site ε_static values (ε_optical 2)")
     ap.add_argument("--omega", type=float, default=0.22)
     ap.add_argument("--jitter", type=float, default=0.05, help="Å RMS of the second copy")
     ap.add_argument("--nstates", type=int, default=3)
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--systems", default="hc4")
+    add_site_args(ap)
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--max-memory", type=int, default=16000)
     ap.add_argument("--no-ions", action="store_true")

@@ -254,24 +254,16 @@ def dimer_at(recs, qm: dict, eps_s, eps_o, omega, cp: dict, cache_dir=None, labe
 
     Starts: each monomer's SCF from ``previous`` (pigment id → its orbitals at another ε, as
     :func:`siteshift.qm.warmstart.carried_start` reads them: a sweep's previous point), else
-    from the tuning job's gas-phase orbitals; the dimer's from the two monomers' orbitals. The
-    monomers' orbitals at this point are returned under ``_monomer_orbitals`` for the next."""
+    from the tuning job's gas-phase orbitals; the dimer's from the two monomers' orbitals.
+    Returns (result, the monomers' orbitals at this point in that layout, for the next)."""
     from ..interactions.dimer import excite_dimer, model_pair
-    from ..qm.warmstart import carried_start
     from .config import qm_settings
     t0 = time.perf_counter()
     sites, resp, ks, res_m = [], [], [], []
     previous = previous or {}
     for rec in recs:
         s = qm_settings(qm, eps_s, eps_o, omega, rec.get("nstates_default"))
-        start = site_start(rec, s, tuning_json)
-        if rec["pigment_id"] in previous:
-            def start(rec=rec, s=s, fallback=start):
-                mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
-                                     rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
-                dm, how = carried_start(mol, previous[rec["pigment_id"]], rec["elements"],
-                                        rec["coords_A"], s.basis)
-                return (dm, how) if dm is not None else fallback()
+        start = site_start(rec, s, tuning_json, orbitals=previous.get(rec["pigment_id"]))
         res, h, arrays = cached_excite(rec, s, cache_dir, label=f"{rec['pigment_id']} "
                                        f"(monomer of {label})", start=start)
         st = cached_transitions(res, h, rec, cache_dir, cp["auxbasis"])
@@ -293,18 +285,17 @@ def dimer_at(recs, qm: dict, eps_s, eps_o, omega, cp: dict, cache_dir=None, labe
                monomer_energies_ev=[row["energy_a_ev"], row["energy_b_ev"]],
                coupling=row, model_pair_ev=[lo, up], model_splitting_cm1=(up - lo) * EV2CM1,
                dimer_result={k: v for k, v in res.items() if not k.startswith("_")},
-               time_s=round(time.perf_counter() - t0, 2),
-               _monomer_orbitals={
-                   r["pigment_id"]: {"mo_coeff": a["mo_coeff"], "mo_occ": a["mo_occ"],
-                                     "elements": r["elements"], "coords_A": r["coords_A"],
-                                     "basis": s.basis, "source": f"{r['pigment_id']} at eps "
-                                                                f"{eps_s:g} (previous point)"}
-                   for r, a in zip(recs, resp)})
+               time_s=round(time.perf_counter() - t0, 2))
+    orbitals = {r["pigment_id"]: {"mo_coeff": a["mo_coeff"], "mo_occ": a["mo_occ"],
+                                  "elements": r["elements"], "coords_A": r["coords_A"],
+                                  "basis": s.basis,
+                                  "source": f"{r['pigment_id']} at eps {eps_s:g} (previous point)"}
+                for r, a in zip(recs, resp)}
     log.info("%s: pair S%d/S%d split %.1f cm⁻¹ (J %+.1f; model %.1f cm⁻¹ from J_tdc %+.1f), "
              "CT %.3f/%.3f, in %.1f s", label, *out["pair"], out["splitting_cm1"],
              out["j_supermolecular_cm1"], out["model_splitting_cm1"],
              row["j_tdc_vacuum_cm1"], *out["charge_transfer_pair"], out["time_s"])
-    return out
+    return out, orbitals
 
 
 def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=None,
@@ -316,9 +307,8 @@ def dimer_stage(models, environments, out_json, qm: dict, cfg=None, tuning_json=
     diel = [io.read_json(e)["dielectric"] for e in environments]
     eps_s = float(np.mean([d["eps_static"] for d in diel]))
     eps_o = float(np.mean([d["eps_optical"] for d in diel]))
-    out = dimer_at(recs, qm, eps_s, eps_o, study_omega(qm, tuning_json), cp, cache_dir,
-                   f"dimer {name}", tuning_json=tuning_json)
-    out.pop("_monomer_orbitals")
+    out, _orbitals = dimer_at(recs, qm, eps_s, eps_o, study_omega(qm, tuning_json), cp,
+                              cache_dir, f"dimer {name}", tuning_json=tuning_json)
     out.update(variant=variant, dimer=name,
                note=("the coupling model uses the unscreened transition-density J: in the "
                      "supermolecule both monomers sit in one continuum, which screens their "
@@ -337,10 +327,9 @@ def dimer_sweep_stage(models, out_json, qm: dict, eps_grid, n2=2.0, cfg=None,
     points, previous = [], None
     for k, eps in enumerate(sorted(float(e) for e in eps_grid)):
         log.info("dimer %s sweep point %d/%d: eps_static %.2f", name, k + 1, len(eps_grid), eps)
-        d = dimer_at(recs, qm, eps, min(float(n2), eps), omega, cp, cache_dir,
-                     f"dimer {name} at eps {eps:g}", tuning_json=tuning_json,
-                     previous=previous)
-        previous = d.pop("_monomer_orbitals")
+        d, previous = dimer_at(recs, qm, eps, min(float(n2), eps), omega, cp, cache_dir,
+                               f"dimer {name} at eps {eps:g}", tuning_json=tuning_json,
+                               previous=previous)
         points.append({key: d[key] for key in (
             "eps_static", "eps_optical", "pair", "splitting_ev", "splitting_cm1",
             "j_supermolecular_cm1", "model_splitting_cm1", "intensity_ratio_upper_lower",

@@ -314,14 +314,15 @@ def tuning_orbitals(tuning_json):
 
 
 def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=None,
-               source=None, same_site=None, cache_dir=None):
+               source=None, same_site=None, cache_dir=None, orbitals=None):
     """A callable giving (dm0, record) of a site's SCF: ``density`` (an AO density of this very
     geometry and basis, e.g. the site's continuum-only ground state, named by ``source``) when
-    its file exists; else the orbitals of the same site computed in another variant
-    (``same_site``: that site's excited_states.json, its orbitals read from the cache), carried
-    to this geometry; else the tuning job's gas-phase orbitals carried to the site's geometry
-    (:func:`siteshift.qm.warmstart.warm_density`); else a cold start. Evaluated only when the SCF
-    runs (a cached result needs none)."""
+    its file exists; else ``orbitals`` (converged on another geometry or ε of this model, in
+    :func:`carried_start`'s layout); else the orbitals of the same site computed in another
+    variant (``same_site``: that site's excited_states.json, its orbitals read from the cache),
+    carried to this geometry; else the tuning job's gas-phase orbitals carried to the site's
+    geometry (:func:`siteshift.qm.warmstart.warm_density`); else a cold start. Evaluated only
+    when the SCF runs (a cached result needs none)."""
     def start():
         if density is not None and Path(density).exists():
             return np.load(density), {"kind": "warm", "source": source or str(density),
@@ -329,8 +330,12 @@ def site_start(rec: dict, settings: ExciteSettings, tuning_json=None, density=No
         mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                              rec["multiplicity"] - 1, settings.basis, settings.max_memory_mb)
         tried = []
-        if same_site is not None:
-            saved = _site_orbitals(same_site, cache_dir)
+
+        def candidates():   # the same site's file is read only when the first does not fit
+            yield orbitals     # in memory (e.g. a sweep's previous point)
+            if same_site is not None:
+                yield _site_orbitals(same_site, cache_dir)
+        for saved in candidates():
             if saved is not None:
                 dm, how = carried_start(mol, saved, rec["elements"], rec["coords_A"],
                                         settings.basis)
