@@ -322,17 +322,23 @@ def test_fitting_basis_covers_iron_with_a_pople_basis():
 
 def test_a_stalled_scf_step_is_left_early():
     # heme b with DIIS sat at |g| ≈ 3 for 100 cycles; the ladder now leaves such a step after
-    # STALL_MIN_CYCLES and hands its density to the next step
-    from siteshift.qm.scf import STALL_MIN_CYCLES, _Stalled, _stall_watch
-    cb = _stall_watch([])
-    flat = [5.0, 4.0] + [3.2] * (STALL_MIN_CYCLES - 3)
-    for g in flat:
-        cb({"norm_gorb": g, "dm": None})
-    with pytest.raises(_Stalled) as err:
+    # STALL_MIN_CYCLES and hands on the density of its lowest |g| (not its last: a wandering
+    # DIIS on heme b ended at |g| 3.6 after passing 0.12)
+    from siteshift.qm.scf import STALL_MIN_CYCLES, _Stalled, _StallWatch
+    cb = _StallWatch([])
+    flat = [5.0, 4.0, 2.9] + [3.2] * (STALL_MIN_CYCLES - 4)
+    for k, g in enumerate(flat):
+        cb({"norm_gorb": g, "dm": f"density {k + 1}"})
+    with pytest.raises(_Stalled):
         cb({"norm_gorb": 3.3, "dm": "last density"})
-    assert err.value.dm == "last density"
+    assert (cb.best_cycle, cb.best_g, cb.hand_on(None)) == (3, 2.9, "density 3")
     # steady (linear) convergence and float32 noise near convergence never count as a stall
     for history in ([0.9 ** k for k in range(80)], [1e-4 * (1 + 0.1 * (k % 2)) for k in range(80)]):
-        cb = _stall_watch([])
+        cb = _StallWatch([])
         for g in history:
             cb({"norm_gorb": g, "dm": None})
+    # the ladder's last step is never left early
+    cb = _StallWatch([], stall=False)
+    for g in [3.2] * (3 * STALL_MIN_CYCLES):
+        cb({"norm_gorb": g, "dm": None})
+    assert len(cb.history) == 3 * STALL_MIN_CYCLES and cb.best_dm is None

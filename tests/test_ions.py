@@ -210,12 +210,46 @@ def test_open_shell_scf_on_the_fast_path_matches_pyscf():
     el, x = ethylene()
     mol = build_molecule(el, x, 1, 1, BASIS)
     s = gas(omega=0.3)
-    mf, _step, _n = run_scf(make_scf(mol, s))
+    mf, step, _n = run_scf(make_scf(mol, s))
+    assert step == "adiis+diis"          # an open shell's first ladder step
     ref = dft.UKS(mol).density_fit()
     ref.xc, ref.grids.level, ref.conv_tol = SRSH(0.2, 0.3).xc, 2, 1e-10
     ref.kernel()
     assert abs(mf.e_tot - ref.e_tot) < 1e-6
     assert abs(mf.e_tot - ref.e_tot) * HARTREE2EV < 3e-5
+
+
+def test_adiis_diis_rule_and_the_cation_it_reaches():
+    # The mixing rule of Hu & Yang's ADIIS+DIIS (JCP 132, 054109 (2010), thresholds 0.1 and
+    # 1e-4 from memory): ADIIS alone above 0.1, CDIIS alone below 1e-4, linear between.
+    from siteshift.qm.scf import AdiisDiis, adiis_weight, ladder_for, make_scf, run_scf
+    assert adiis_weight(0.5) == 1.0 and adiis_weight(0.1) == 1.0 and adiis_weight(5e-5) == 0.0
+    assert adiis_weight(0.03) == pytest.approx(0.3)
+    # the blend is what the solver uses: ADIIS's and CDIIS's Fock matrices mixed by the weight
+    el, x = ethylene()
+    mol = build_molecule(el, x, 1, 1, BASIS)
+    assert ladder_for(mol)[0][0] == "adiis+diis"
+    mf = make_scf(mol, gas(omega=0.3))
+    from pyscf.scf import diis as scf_diis
+    h1e, s1e = mf.get_hcore(), mf.get_ovlp()
+    mine, a, c = AdiisDiis(mf), scf_diis.ADIIS(mf), scf_diis.CDIIS(mf)
+    dm = mf.get_init_guess()
+    for _ in range(3):   # three Roothaan steps: the histories hold several matrices
+        vhf = mf.get_veff(mol, dm)
+        f = h1e + vhf
+        got = mine.update(s1e, dm, f, mf, h1e, vhf)
+        f_a, f_c = a.update(s1e, dm, f, mf, h1e, vhf), c.update(s1e, dm, f, mf, h1e, vhf)
+        w = adiis_weight(mine.last_error)
+        assert np.allclose(got, w * f_a + (1 - w) * f_c, atol=1e-12)
+        e, mo = mf.eig(f, s1e)
+        dm = mf.make_rdm1(mo, mf.get_occ(e, mo))
+    assert 0 < mine.last_error
+    # the second-order solver (PySCF's, an independent route) from the same start reaches the
+    # energy the ladder's ADIIS+DIIS step converges to: the same cation state, 1e-7 Eh
+    mf, step, n = run_scf(make_scf(mol, gas(omega=0.3)))
+    newton = make_scf(mol, gas(omega=0.3)).newton()
+    newton.conv_tol = 1e-10
+    assert step == "adiis+diis" and newton.kernel() == pytest.approx(mf.e_tot, abs=1e-7)
 
 
 def test_ions_command(tmp_path, capsys):
