@@ -335,6 +335,9 @@ def _cached_esp(rec, qm, cache):
         return io.read_json(path)
     mol = build_molecule(rec["elements"], rec["coords_A"], rec["charge"],
                          rec["multiplicity"] - 1, s.basis, s.max_memory_mb)
+    log.info("%s: ESP-charge SCF, %d atoms, %s (%d basis functions), gas phase, charge %+d, "
+             "2S %d; kept in %s for later calls", rec["ccd_code"], mol.natm, s.basis, mol.nao,
+             rec["charge"], rec["multiplicity"] - 1, path)
     mf, _step, _cycles = run_scf(make_scf(mol, s), log=log.info)
     fit = esp_charges(mf, rec["elements"], rec["coords_A"], rec["charge"])
     io.write_json(path, fit)
