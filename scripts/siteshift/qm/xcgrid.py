@@ -101,7 +101,7 @@ BLOCK_MB = 200
 #: outgrow it; PySCF's block loop then falls to its smallest blocks (a few hundred points).
 #: Measured on HC4/def2-SVP, grid 1 (82 k points, 2 threads): one XC build 0.77 s with
 #: 200 MB blocks, 11–13 s with max_memory −800 MB (the value PySCF passed in a 19HC heme
-#: SCF at 6-31G with max_memory_mb 4000). So a block never falls below this size.
+#: SCF at def2-SVP with max_memory_mb 4000). So a block never falls below this size.
 BLOCK_MIN_MB = 100
 
 
