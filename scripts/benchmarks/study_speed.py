@@ -130,14 +130,13 @@ def ion_job(args, geo, eps, way, site_npz):
                      start={"kind": "warm", "source": "the site's density"} if dm0 is not None
                      else None)
     sc = out["scf"]
-    ev = HARTREE2EV
     return {"scf_s": sum(v["time_s"] for v in sc.values()),
             **{f"{k}_s": round(v["time_s"], 2) for k, v in sc.items()},
             **{f"{k}_cycles": v["cycles"] for k, v in sc.items()},
             "scf_cycles": sum(v["cycles"] for v in sc.values()),
             "energies_ev": [(sc["cation"]["energy_hartree"] - sc["neutral"]["energy_hartree"])
-                            * ev, (sc["neutral"]["energy_hartree"]
-                                   - sc["anion"]["energy_hartree"]) * ev],
+                            * HARTREE2EV, (sc["neutral"]["energy_hartree"]
+                                   - sc["anion"]["energy_hartree"]) * HARTREE2EV],
             "start": "site density" if way == "warm" else "cold"}
 
 

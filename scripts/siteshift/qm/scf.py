@@ -211,8 +211,7 @@ class AdiisDiis(scf_diis.CDIIS):
         self._adiis.space = self.space
         f_a = self._adiis.update(s, d, f, *args, **kwargs)
         f_c = super().update(s, d, f, *args, **kwargs)
-        sdf = np.asarray(s) @ np.asarray(d) @ np.asarray(f)
-        self.last_error = err = float(np.abs(sdf - np.swapaxes(sdf, -1, -2)).max())
+        self.last_error = err = float(np.abs(scf_diis.get_err_vec_orig(s, d, f)).max())
         w = adiis_weight(err)
         return f_a if w == 1.0 else f_c if w == 0.0 else w * f_a + (1.0 - w) * f_c
 
