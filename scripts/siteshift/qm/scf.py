@@ -237,6 +237,15 @@ SCF_LADDER_OPEN = (("adiis+diis", {"DIIS": AdiisDiis}),) + SCF_LADDER[1:]
 #: grid did not help; session 11: level shift + damping diverged), while the second-order
 #: solver went down monotonically, |g| 4.3 → 0.05 in 8 macro iterations and 1.4e-3 in 15
 #: (E −3134.2162 Eh, 10 Eh below where DIIS sat; 27-43 s an iteration).
+#: Tried and not adopted (2026-12-04, records/heme_scf.tsv): ADIIS+DIIS first, which reaches
+#: the heme's basin in ~22 cycles (the heme alone, 6-31G, SRSH gas: |g| 7e-4, against CDIIS's
+#: |g| ~3 two Eh above), then CDIIS or the second-order step for the tail. Such metal molecules
+#: have several SCF solutions, and the routes end on different ones: Fe–C–O (STO-3G, the test
+#: molecule below) second order from minao −1361.241434 Eh, ADIIS+DIIS then second order
+#: −1361.237711, ADIIS+DIIS alone −1361.237395, CDIIS none in 100 cycles; the heme alone at
+#: STO-3G, ADIIS+DIIS then second order −2610.775847, ADIIS+DIIS, CDIIS then second order
+#: −2610.768635. The second-order step from the guess found the lowest where compared, so it
+#: stays first until a stability check can tell the solutions apart.
 D_BLOCK = {"Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn", "Ru", "Rh", "Pd", "Ag",
            "Os", "Ir", "Pt", "Au"}
 SCF_LADDER_METAL = (SCF_LADDER[2], SCF_LADDER[0], SCF_LADDER[1])
