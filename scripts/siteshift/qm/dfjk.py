@@ -198,13 +198,30 @@ def pack_sym(full, out=None):
 
 
 def _factor(dm, hermi, mo_coeff=None, mo_occ=None):
-    """(U, V) with dm = U Vᵀ, of the lowest rank we can find cheaply."""
+    """(U, V) with dm = U Vᵀ, of the lowest rank we can find cheaply; for a symmetric,
+    indefinite dm (U, signs) with dm = U diag(signs) Uᵀ, signs a 1-D array of ±1."""
     if mo_coeff is not None and mo_occ is not None and hermi == 1:
         occ = np.asarray(mo_occ)
         sel = occ > 0
         c = np.asarray(mo_coeff)[:, sel] * np.sqrt(occ[sel])
         return c, c
-    u, s, vt = np.linalg.svd(dm)
+    if not np.isfinite(dm).all():
+        raise FloatingPointError("a density matrix handed to the fitted J/K build holds NaN or "
+                                 "inf values (an SCF or response step diverged)")
+    if hermi == 1:
+        # symmetric (e.g. the second-order SCF's trial densities): dm = W diag(λ) Wᵀ, split
+        # as (W √|λ| sign λ)(W √|λ|)ᵀ; eigh is also more robust than LAPACK's divide-and-conquer
+        # SVD, which failed to converge on such a matrix (heme, 6-31G, second-order step)
+        lam, w = np.linalg.eigh((dm + dm.T) * 0.5)
+        keep = np.abs(lam) > 1e-12 * max(np.abs(lam).max(), 1e-300)
+        r = w[:, keep] * np.sqrt(np.abs(lam[keep]))
+        sign = np.sign(lam[keep])
+        # an indefinite D = R diag(sign) Rᵀ: K needs the products L_P R once, not twice
+        return (r, r) if (sign > 0).all() else (r, sign)
+    try:
+        u, s, vt = np.linalg.svd(dm)
+    except np.linalg.LinAlgError:   # gesdd's rare failure: the slower QR-iteration driver
+        u, s, vt = scipy.linalg.svd(dm, lapack_driver="gesvd")
     keep = s > 1e-12 * max(s.max(), 1e-300)
     rs = np.sqrt(s[keep])
     return u[:, keep] * rs, vt[keep].T * rs
@@ -392,7 +409,8 @@ class CompactDF(df.DF):
             # column-major for ?symm; None for the second factor of a symmetric D = U Uᵀ
             u, v = _factor(dms[k], hermi, mo_coeff[k], mo_occ[k])
             factors.append((np.asfortranarray(u, dtype=cdt),
-                            None if v is u else np.asfortranarray(v, dtype=cdt)))
+                            None if v is u else v.astype(cdt) if v.ndim == 1 else
+                            np.asfortranarray(v, dtype=cdt)))
         rank = max((u.shape[1] for u, _ in factors), default=1)
         per_row = (8 * npair if with_j else 0) + cdt.itemsize * (nao * nao + 2 * nao * rank)
         rows = max(1, min(int(self.block_mb * 1e6 / per_row), self.naux(omega or 0.0)))
@@ -402,7 +420,7 @@ class CompactDF(df.DF):
             full = np.empty((rows, nao, nao), dtype=cdt)
             symm = scipy.linalg.blas.get_blas_funcs("symm", dtype=cdt)
             za = np.empty(rows * nao * rank, dtype=cdt)
-            if any(v is not None for _, v in factors):
+            if any(v is not None and v.ndim == 2 for _, v in factors):
                 zb = np.empty(rows * nao * rank, dtype=cdt)
         rho = np.empty((nset, self.naux(omega or 0.0))) if with_j else None
         for p0, p1, raw in self.raw_blocks(omega or 0.0, rows):
@@ -426,7 +444,12 @@ class CompactDF(df.DF):
                 if u.shape[1] == 0:  # an empty density (e.g. no electron of one spin)
                     continue
                 zu = self._stacked(f, u, symm, za)
-                vk[k] += zu.T @ (zu if v is None else self._stacked(f, v, symm, zb))
+                if v is None:
+                    vk[k] += zu.T @ zu
+                elif v.ndim == 1:   # D = U diag(signs) Uᵀ; Z's rows run (P, i)
+                    vk[k] += zu.T @ (zu * np.tile(v, nb)[:, None])
+                else:
+                    vk[k] += zu.T @ self._stacked(f, v, symm, zb)
         if with_j:
             vj = lib.unpack_tril(jtril, 1).reshape(shape)
             if not omega:
