@@ -246,14 +246,30 @@ SCF_LADDER_OPEN = (("adiis+diis", {"DIIS": AdiisDiis}),) + SCF_LADDER[1:]
 #: STO-3G, ADIIS+DIIS then second order −2610.775847, ADIIS+DIIS, CDIIS then second order
 #: −2610.768635. The second-order step from the guess found the lowest where compared, so it
 #: stays first until a stability check can tell the solutions apart.
+#: The second-order step hands on to CDIIS (fresh history) once |g| is below
+#: METAL_HANDOVER_BELOW: inside the basin DIIS may finish the tail in ~10 s cycles where a
+#: second-order iteration there takes minutes. Measured on the heme alone (19HC A_HEM301,
+#: 6-31G, SRSH gas, 389 AOs, 2 threads): second order from minao reached |g| 1.2e-3 in 8
+#: iterations (30 min; E −2640.636528 Eh) and then crawled (iteration 9: 474 s, |g| 3.0e-4,
+#: ΔE −3.4e-5 Eh); CDIIS restarted at |g| 7e-4 in ADIIS's basin converged in 13 cycles. But
+#: DIIS may also crawl there (Fe–C–O, STO-3G: |g| 1.3e-4 for 80 cycles, 0.2 mEh above the
+#: minimum), so the DIIS step is left when its |g| stops halving even below STALL_ABOVE
+#: (down to METAL_DIIS_STALL_ABOVE), and the second-order step finishes from its best density.
+#: (A hand-over at 0.05 did not work: DIIS wandered off; session notes of 2026-12-02.)
+METAL_HANDOVER_BELOW = 2e-3
+METAL_DIIS_STALL_ABOVE = 1e-5
 D_BLOCK = {"Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn", "Ru", "Rh", "Pd", "Ag",
            "Os", "Ir", "Pt", "Au"}
-SCF_LADDER_METAL = (SCF_LADDER[2], SCF_LADDER[0], SCF_LADDER[1])
+SCF_LADDER_METAL = (("second_order", {"leave_below": METAL_HANDOVER_BELOW}),
+                    ("diis", {"DIIS": scf_diis.CDIIS, "after_handover": True,
+                              "stall_above": METAL_DIIS_STALL_ABOVE}),
+                    ("second_order", None), SCF_LADDER[1])
 
 
 def ladder_for(mol):
-    """The fallback ladder for a molecule: second-order first when it holds a d-block metal,
-    else ADIIS+DIIS first for an open shell, else DIIS."""
+    """The fallback ladder for a molecule: second order first (DIIS once inside the basin, then
+    second order again if DIIS crawls) when it holds a d-block metal, else ADIIS+DIIS first for
+    an open shell, else DIIS."""
     elements = {mol.atom_pure_symbol(i) for i in range(mol.natm)}
     if elements & D_BLOCK:
         return SCF_LADDER_METAL
@@ -264,7 +280,10 @@ def ladder_for(mol):
 #: ladder from its current density, rather than running to max_cycle: after at least
 #: ``STALL_MIN_CYCLES`` cycles, if the best |g| of the last ``STALL_WINDOW`` cycles is not below
 #: ``STALL_RATIO`` times the best before them (and still above ``STALL_ABOVE``, so float32
-#: noise near convergence never counts). Measured on heme b (19HC, 6-31G, gas): DIIS sat at
+#: noise near convergence never counts). A ladder step with a ``leave_below`` entry is also
+#: left once |g| falls below it, its density handed on; a step marked ``after_handover`` runs
+#: only after such a hand-over, and a ``stall_above`` entry sets a step's own floor
+#: (:data:`METAL_HANDOVER_BELOW`). Measured on heme b (19HC, 6-31G, gas): DIIS sat at
 #: |g| ~ 3 for 100 cycles (17 s each) before the damped step was reached.
 STALL_MIN_CYCLES = 20
 STALL_WINDOW = 10
@@ -273,11 +292,13 @@ STALL_ABOVE = 1e-3
 
 
 class _Stalled(Exception):
-    """Raised from an SCF callback to leave a step that stopped converging."""
+    """Raised from an SCF callback to leave a step that stopped converging (or, with
+    ``reached``, one whose work is done: |g| below its step's ``leave_below``)."""
 
-    def __init__(self, gorb):
-        super().__init__(f"orbital gradient stalled at {gorb:.2e}")
-        self.gorb = gorb
+    def __init__(self, gorb, reached=None):
+        super().__init__(f"orbital gradient {gorb:.2e} below {reached:.0e}, handed on"
+                         if reached else f"orbital gradient stalled at {gorb:.2e}")
+        self.gorb, self.reached = gorb, reached
 
 
 class _StallWatch:
@@ -291,8 +312,9 @@ class _StallWatch:
     steps before had gained. (In the second-order step |g| is taken before an iteration's
     rotation and the density after it: the density kept is one iteration past the lowest |g|.)"""
 
-    def __init__(self, history, stall=True):
-        self.history, self.stall = history, stall
+    def __init__(self, history, stall=True, leave_below=None, above=STALL_ABOVE):
+        self.history, self.stall, self.leave_below = history, stall, leave_below
+        self.above = above
         self.best_g, self.best_dm, self.best_cycle = np.inf, None, 0
 
     def __call__(self, env):
@@ -302,7 +324,9 @@ class _StallWatch:
         if g < self.best_g and env.get("dm") is not None:
             # PySCF's cycle makes a new density array each cycle: keeping the reference is safe
             self.best_g, self.best_dm, self.best_cycle = g, env["dm"], n
-        if self.stall and n >= STALL_MIN_CYCLES and g > STALL_ABOVE:
+        if self.leave_below is not None and g < self.leave_below:
+            raise _Stalled(g, reached=self.leave_below)
+        if self.stall and n >= STALL_MIN_CYCLES and g > self.above:
             before = min(self.history[:-STALL_WINDOW])
             recent = min(self.history[-STALL_WINDOW:])
             if recent > STALL_RATIO * before:
@@ -434,8 +458,15 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
     tried = []
     total = 0    # cycles of every step tried: a stalled DIIS's cycles cost as much as any
     ladder = ladder_for(mf.mol)
+    handed_over = False   # the step before was left below its leave_below
     for name, attrs in ladder:
-        if attrs is None:
+        attrs = dict(attrs or {})
+        leave_below = attrs.pop("leave_below", None)
+        stall_above = attrs.pop("stall_above", STALL_ABOVE)
+        if attrs.pop("after_handover", False) and not handed_over:
+            continue
+        newton = name == "second_order"
+        if newton:
             solver = mf.newton()
         else:
             solver = mf
@@ -443,10 +474,10 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
                 setattr(solver, k, v)
         solver.max_cycle = max_cycle
         cycles = []
-        last = attrs is None or name == ladder[-1][0]
-        watch = _StallWatch(cycles, stall=not last)
+        last = newton or name == ladder[-1][0]   # a second-order step never stalls out
+        watch = _StallWatch(cycles, stall=not last, leave_below=leave_below, above=stall_above)
         solver.callback = _with_progress(watch, log, name, cycles)
-        early = _EarlyCycles(solver) if mixed_precision and attrs is not None else None
+        early = _EarlyCycles(solver) if mixed_precision and not newton else None
         stalled = None
         try:
             solver.kernel(dm0=dm)
@@ -471,6 +502,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         if solver.converged:
             return solver, name, total
         dm = watch.hand_on(solver)
+        handed_over = bool(stalled is not None and stalled.reached)
     raise EngineError(f"SCF did not converge after the fallback ladder {tried}; try a smaller "
                       "basis, a different charge/multiplicity, or check the geometry for clashes")
 
