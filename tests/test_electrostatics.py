@@ -307,6 +307,12 @@ def test_cli_electrostatics_names_the_mutated_residue(root, tmp_path, capsys):
     assert a["bands"]["bright"]["residues"][0]["shift_mev"] > 0      # Glu⁻ blue-shifts it
     assert b["superposition_rmsd_A"] < 1.0 and a["reference_copy"] == "A_HC4101"
     assert "A:GLU6" in capsys.readouterr().out
+    # the difference-density SCF started from the same model's gas-phase ESP-charge density
+    (esp,) = (tmp_path / "cache").glob("esp_*.json")
+    assert esp.with_suffix(".dm.npy").exists()
+    (dens,) = [p for p in (tmp_path / "cache").glob("*.json") if p != esp]
+    start = json.loads(dens.read_text())["scf_start"]
+    assert start["kind"] == "warm" and "ESP-charge SCF of A_HC4101" in start["source"]
     t_first = res["timings_s"]["total_s"]
     assert main(args) == 0
     again = json.loads(out.read_text())

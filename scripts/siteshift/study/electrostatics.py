@@ -211,15 +211,14 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
                      top=10, axial_ligands=False):
     """First-order electrostatic shift of every pigment of a structure, by residue, with one
     relaxed difference density per pigment type (computed once in a uniform continuum and kept
-    in cache_dir) carried to each copy by superposing its QM model.
+    in cache_dir; its SCF starts from the type's gas-phase ESP-charge density, same model and
+    basis) carried to each copy by superposing its QM model.
 
     Every copy's charges (all atoms but its own pigment) are moved into the frame of the
     type's reference copy by the least-squares superposition of the two QM models' heavy atoms
     (Kabsch), so a copy whose geometry differs from the reference's is approximated by the
     reference's density (the RMSD is reported). axial_ligands: the metal's coordinating side
     chains join each QM model (their charges then leave the embedding set)."""
-    from pathlib import Path
-
     from ..structures.ligands import add_axial_ligands
 
     from ..structures.inventory import model_for, pigment_residues
@@ -273,8 +272,11 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
             continue
         t = time.perf_counter()
         s = qm_settings(qm, eps_s, eps_o, qm.get("omega"), rec.get("nstates_default"))
-        res, h, arrays = cached_excite(rec, s, cache, relaxed=True,
-                                       label=f"{code} (reference copy {pid})")
+        # the continuum SCF starts from the same model's gas-phase ESP density (same basis)
+        res, h, arrays = cached_excite(
+            rec, s, cache, relaxed=True, label=f"{code} (reference copy {pid})",
+            start=site_start(rec, s, density=_esp_path(rec, qm, cache).with_suffix(".dm.npy"),
+                             source=f"the gas-phase ESP-charge SCF of {pid}"))
         settings_by_code[code] = s
         dens[code] = (rec, res, arrays)
         timings[f"density_{code}_s"] = round(time.perf_counter() - t, 2)
@@ -319,17 +321,26 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
             "timings_s": timings}
 
 
-def _cached_esp(rec, qm, cache):
-    """ESP charges of one pigment type's QM model, kept in the cache by a hash of the model
-    and the QM settings."""
-    from ..qm.esp import esp_charges
-    from ..qm.scf import make_scf, run_scf
+def _esp_path(rec, qm, cache):
+    """Where the ESP charges of one pigment type's QM model are kept: a hash of the model and
+    the QM settings (the ground-state density beside it, ``.dm.npy``)."""
     from .config import qm_settings
     s = qm_settings(qm, 1.0, 1.0, qm.get("omega"))
     key = {"esp": rec["ccd_code"], "elements": rec["elements"],
            "coords_A": np.round(np.asarray(rec["coords_A"]), 4).tolist(),
            "charge": rec["charge"], "settings": s.functional.as_dict(), "basis": s.basis}
-    path = cache / f"esp_{io.stable_hash(key)}.json"
+    return Path(cache) / f"esp_{io.stable_hash(key)}.json"
+
+
+def _cached_esp(rec, qm, cache):
+    """ESP charges of one pigment type's QM model, computed once and kept in the cache
+    (:func:`_esp_path`); the SCF's density is kept too, as the start of the type's
+    difference-density SCF on the same model."""
+    from ..qm.esp import esp_charges
+    from ..qm.scf import make_scf, run_scf
+    from .config import qm_settings
+    s = qm_settings(qm, 1.0, 1.0, qm.get("omega"))
+    path = _esp_path(rec, qm, cache)
     if path.exists():
         log.info("%s: ESP charges reused from %s", rec["ccd_code"], path)
         return io.read_json(path)
@@ -340,5 +351,7 @@ def _cached_esp(rec, qm, cache):
              rec["charge"], rec["multiplicity"] - 1, path)
     mf, _step, _cycles = run_scf(make_scf(mol, s), log=log.info)
     fit = esp_charges(mf, rec["elements"], rec["coords_A"], rec["charge"])
+    path.parent.mkdir(parents=True, exist_ok=True)
+    np.save(path.with_suffix(".dm.npy"), mf.make_rdm1())
     io.write_json(path, fit)
     return fit
