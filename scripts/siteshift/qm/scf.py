@@ -230,32 +230,17 @@ SCF_LADDER = (
 #: (:class:`AdiisDiis`, the cation measurement there), then the damped step and second order.
 SCF_LADDER_OPEN = (("adiis+diis", {"DIIS": AdiisDiis}),) + SCF_LADDER[1:]
 
-#: d-block metals: a molecule holding one starts with the second-order (Newton) step, DIIS and
-#: the damped step after it. Measured on heme b with its two His (19HC A_HEM301, 87 atoms,
-#: Fe(II) singlet, STO-3G, PBE, grid 0, 2 threads): from the same minao guess, DIIS wandered
-#: 7-10 Eh above the minimum with |g| 3.6-4.4 for 20 cycles (Fermi smearing σ 0.02 and a finer
-#: grid did not help; session 11: level shift + damping diverged), while the second-order
-#: solver went down monotonically, |g| 4.3 → 0.05 in 8 macro iterations and 1.4e-3 in 15
-#: (E −3134.2162 Eh, 10 Eh below where DIIS sat; 27-43 s an iteration).
-#: Tried and not adopted (2026-12-04, records/heme_scf.tsv): ADIIS+DIIS first, which reaches
-#: the heme's basin in ~22 cycles (the heme alone, 6-31G, SRSH gas: |g| 7e-4, against CDIIS's
-#: |g| ~3 two Eh above), then CDIIS or the second-order step for the tail. Such metal molecules
-#: have several SCF solutions, and the routes end on different ones: Fe–C–O (STO-3G, the test
-#: molecule below) second order from minao −1361.241434 Eh, ADIIS+DIIS then second order
-#: −1361.237711, ADIIS+DIIS alone −1361.237395, CDIIS none in 100 cycles; the heme alone at
-#: STO-3G, ADIIS+DIIS then second order −2610.775847, ADIIS+DIIS, CDIIS then second order
-#: −2610.768635. The second-order step from the guess found the lowest where compared, so it
-#: stays first until a stability check can tell the solutions apart.
-#: The second-order step hands on to CDIIS (fresh history) once |g| is below
-#: METAL_HANDOVER_BELOW: inside the basin DIIS may finish the tail in ~10 s cycles where a
-#: second-order iteration there takes minutes. Measured on the heme alone (19HC A_HEM301,
-#: 6-31G, SRSH gas, 389 AOs, 2 threads): second order from minao reached |g| 1.2e-3 in 8
-#: iterations (30 min; E −2640.636528 Eh) and then crawled (iteration 9: 474 s, |g| 3.0e-4,
-#: ΔE −3.4e-5 Eh); CDIIS restarted at |g| 7e-4 in ADIIS's basin converged in 13 cycles. But
-#: DIIS may also crawl there (Fe–C–O, STO-3G: |g| 1.3e-4 for 80 cycles, 0.2 mEh above the
-#: minimum), so the DIIS step is left when its |g| stops halving even below STALL_ABOVE
-#: (down to METAL_DIIS_STALL_ABOVE), and the second-order step finishes from its best density.
-#: (A hand-over at 0.05 did not work: DIIS wandered off; session notes of 2026-12-02.)
+#: d-block metals start with the second-order (Newton) step. Heme b + 2 His (19HC, STO-3G, PBE,
+#: grid 0): from minao DIIS wandered 7-10 Eh above the minimum (|g| 3.6-4.4, 20 cycles; Fermi
+#: smearing, finer grid, level shift + damping did not help); second order went down
+#: monotonically to |g| 1.4e-3 in 15 iterations (E −3134.2162 Eh; 27-43 s each).
+#: ADIIS+DIIS first was tried (records/heme_scf.tsv, README): 5x faster, but it ends on other
+#: SCF solutions (heme 6-31G 14.9 mEh, Fe–C–O 3.7 mEh above the second-order one).
+#: The second-order step hands on to CDIIS (fresh history) once |g| < METAL_HANDOVER_BELOW:
+#: heme alone (19HC, 6-31G, SRSH gas, 389 AOs): second order reached |g| 1.2e-3 in 8
+#: iterations (30 min), its 9th took 474 s; CDIIS from there converged in 28 cycles (3.6 min)
+#: to the same solution (2e-8 Eh). DIIS may crawl instead (Fe–C–O, STO-3G: |g| 2e-4, 0.2 mEh
+#: above), so it stalls out down to METAL_DIIS_STALL_ABOVE and second order finishes.
 METAL_HANDOVER_BELOW = 2e-3
 METAL_DIIS_STALL_ABOVE = 1e-5
 D_BLOCK = {"Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn", "Ru", "Rh", "Pd", "Ag",
@@ -283,8 +268,7 @@ def ladder_for(mol):
 #: noise near convergence never counts). A ladder step with a ``leave_below`` entry is also
 #: left once |g| falls below it, its density handed on; a step marked ``after_handover`` runs
 #: only after such a hand-over, and a ``stall_above`` entry sets a step's own floor
-#: (:data:`METAL_HANDOVER_BELOW`). Measured on heme b (19HC, 6-31G, gas): DIIS sat at
-#: |g| ~ 3 for 100 cycles (17 s each) before the damped step was reached.
+#: (:data:`METAL_HANDOVER_BELOW`). Heme b (6-31G): DIIS sat at |g| ~ 3 for 100 cycles.
 STALL_MIN_CYCLES = 20
 STALL_WINDOW = 10
 STALL_RATIO = 0.5
@@ -306,11 +290,9 @@ class _StallWatch:
     lowest |g| seen (``best_dm``, cycle ``best_cycle``), and raising :class:`_Stalled` when the
     step stopped converging (see ``STALL_MIN_CYCLES``).
 
-    A step left unconverged hands its best density on, not its last: a DIIS that wanders
-    (heme b, 19HC, STO-3G: |g| between 0.12 and 1.9 for 20 cycles) ends anywhere in its
-    wandering, and the next step started from its last density (|g| 3.6) lost everything the
-    steps before had gained. (In the second-order step |g| is taken before an iteration's
-    rotation and the density after it: the density kept is one iteration past the lowest |g|.)"""
+    A step left unconverged hands its best density on, not its last (a wandering DIIS on heme
+    b ended at |g| 3.6 after passing 0.12). In the second-order step |g| is taken before an
+    iteration's rotation and the density after it (one iteration past the lowest |g|)."""
 
     def __init__(self, history, stall=True, leave_below=None, above=STALL_ABOVE):
         self.history, self.stall, self.leave_below = history, stall, leave_below
