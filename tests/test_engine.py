@@ -275,7 +275,7 @@ def test_damped_ladder_step_damps():
 def test_metal_molecules_start_with_the_second_order_step():
     # Fe (d block) starts with PySCF's second-order solver (the heme measurement in
     # siteshift.qm.scf), hands on to DIIS below METAL_HANDOVER_BELOW and goes back to second
-    # order when DIIS crawls; Mg (s block, chlorophylls) and organic molecules keep DIIS first.
+    # order when DIIS crawls; from a given density it starts with DIIS; Mg (s block, chlorophylls) and organic molecules keep DIIS first.
     # The second-order step reaches the same SCF energy as DIIS on water (to 1e-8 Eh).
     from pyscf import gto
     from siteshift.qm.scf import METAL_HANDOVER_BELOW, SCF_LADDER, ladder_for
@@ -298,6 +298,15 @@ def test_metal_molecules_start_with_the_second_order_step():
     ref = make_scf(fe, s).newton()
     ref.conv_tol = 1e-10
     assert mf.converged and ref.kernel() == pytest.approx(mf.e_tot, abs=1e-6)
+    # From a given density (here the gas-phase solution, into IEF-PCM ε 4) the ladder starts
+    # with DIIS, and ends where PySCF's second-order solver goes from the same density (1e-6 Eh;
+    # measured: 17 DIIS cycles, 1.4 s, vs 5.5 s; 6e-10 Eh apart)
+    assert [n for n, _a in ladder_for(fe, warm=True)][:2] == ["diis", "second_order"]
+    sp = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3, eps_static=4.0, eps_optical=2.0)
+    warm, step, _n = run_scf(make_scf(fe, sp), dm0=mf.make_rdm1())
+    ref = make_scf(fe, sp).newton()
+    ref.conv_tol = 1e-10
+    assert step == "diis" and ref.kernel(dm0=mf.make_rdm1()) == pytest.approx(warm.e_tot, abs=1e-6)
     s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
     mol = build_molecule(*WATER, basis="sto-3g")
     e_diis = run_scf(make_scf(mol, s))[0].e_tot

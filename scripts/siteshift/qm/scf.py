@@ -10,13 +10,14 @@ import time
 import warnings
 
 import numpy as np
-from pyscf import dft, gto, lib
+from pyscf import dft, gto
 from pyscf.data.elements import ELEMENTS_PROTON
 from pyscf.scf import diis as scf_diis
 from pyscf.lib.exceptions import BasisNotFoundError
 
 from ..base.units import HARTREE2EV
 from .dfjk import CompactDF
+from .earlycycles import EarlyCycles
 from .embedding import attach_charges
 from .functional import SRSH
 from .pcm import FactoredPCM, FittedPCM
@@ -249,15 +250,23 @@ SCF_LADDER_METAL = (("second_order", {"leave_below": METAL_HANDOVER_BELOW}),
                     ("diis", {"DIIS": scf_diis.CDIIS, "after_handover": True,
                               "stall_above": METAL_DIIS_STALL_ABOVE}),
                     ("second_order", None), SCF_LADDER[1])
+#: A metal SCF started from a given density (a converged density of the same model in
+#: another environment: gas phase → continuum, another ω, the charges added) starts with CDIIS
+#: (stalling out down to METAL_DIIS_STALL_ABOVE), then second order. Heme alone (19HC, 6-31G,
+#: SRSH, IEF-PCM ε 4) from its converged gas-phase density: |g| 2.7e-3 at the start; second
+#: order took 295 s and 350 s for its first two iterations, and |g| rose to 4.7e-3 in them.
+SCF_LADDER_METAL_WARM = (("diis", {"DIIS": scf_diis.CDIIS, "stall_above": METAL_DIIS_STALL_ABOVE}),
+                         ("second_order", None), SCF_LADDER[1])
 
 
-def ladder_for(mol):
+def ladder_for(mol, warm=False):
     """The fallback ladder for a molecule: second order first (DIIS once inside the basin, then
-    second order again if DIIS crawls) when it holds a d-block metal, else ADIIS+DIIS first for
-    an open shell, else DIIS."""
+    second order again if DIIS crawls) when it holds a d-block metal, DIIS first (then second
+    order) if such a molecule starts from a given density (warm), else ADIIS+DIIS first for an
+    open shell, else DIIS."""
     elements = {mol.atom_pure_symbol(i) for i in range(mol.natm)}
     if elements & D_BLOCK:
-        return SCF_LADDER_METAL
+        return SCF_LADDER_METAL_WARM if warm else SCF_LADDER_METAL
     return SCF_LADDER_OPEN if mol.spin else SCF_LADDER
 
 
@@ -339,107 +348,17 @@ def _with_progress(callback, log, step, cycles):
     return wrapped
 
 
-#: Orbital-gradient norm below which the SCF's exchange goes back to float64 (see
-#: :class:`_EarlyCycles`). Measured on 4'-hydroxycinnamic acid/def2-SVP, grid 1, fitted PCM:
-#: 1e-3 and 1e-4 both take 12 cycles (8 and 10 of them in float32), same energy to 1e-10 Eh,
-#: excitations within 2e-6 eV; 3e-5 takes 14.
-K_FLOAT64_BELOW = 1e-4
-#: MB left free when the float32 cycles decide whether AO values on the grid can be kept
-#: between cycles (from the SCF's max_memory less what the process holds after its first cycle).
-AO_CACHE_RESERVE_MB = 1000
-
-
-class _EarlyCycles:
-    """Float32 exchange (and XC grid sums) for the early SCF cycles, float64 from then on.
-
-    Measured on 4'-hydroxycinnamic acid/def2-SVP: float32 exchange is 2.1x faster, and its error
-    (max |ΔK| 1e-5 Eh on a matrix of max 9.8, ΔE_K 2.5e-5 Eh) is far below the changes of the
-    early cycles but would stop the convergence at about that level. So the exchange switches to
-    float64 once the orbital gradient falls below ``K_FLOAT64_BELOW``, and convergence cannot be
-    declared before: the converged state is the float64 one, as without the switch. Only a
-    :class:`CompactDF` ground state takes part; its :class:`DenseNumInt` grid sums follow the
-    same switch. (A coarse XC grid for the same early cycles was
-    tried and dropped: grid 0 before grid 1 took 22 cycles instead of 12 on that molecule.)
-    """
-
-    def __init__(self, solver):
-        self.solver = solver
-        self.df = getattr(solver, "with_df", None)
-        self.early = isinstance(self.df, CompactDF)
-        self.early_cycles = 0
-        self.cached_mb = 0.0
-        if not self.early:
-            return
-        self.df.k_dtype = np.float32
-        self.ni = solver._numint if isinstance(solver._numint, DenseNumInt) else None
-        if self.ni is not None:
-            self.ni.dtype = np.float32
-        self.inner_cb = inner_cb = solver.callback
-
-        self.best_gorb, self.stalled = np.inf, 0
-
-        def callback(env):
-            if self.early:
-                self.early_cycles += 1
-                gorb = env.get("norm_gorb", 1.0)
-                # a gradient that stops falling is at float32's noise level: go on in float64
-                self.stalled = self.stalled + 1 if gorb >= self.best_gorb else 0
-                self.best_gorb = min(self.best_gorb, gorb)
-                if gorb < K_FLOAT64_BELOW or self.stalled >= 2:
-                    self.finish()
-                elif self.ni is not None and not self.ni.cache_mb:
-                    # both fitted tensors exist after the first cycle: what memory is left
-                    # may keep the float32 AO values on the grid for the cycles to come
-                    rss = lib.current_memory()[0]
-                    self.ni.cache_mb = max(0.0, solver.max_memory - rss - AO_CACHE_RESERVE_MB)
-            if inner_cb:
-                inner_cb(env)
-
-        def check(env):
-            if self.early:
-                return False
-            return (abs(env["e_tot"] - env["last_hf_e"]) < env["conv_tol"]
-                    and env["norm_gorb"] < env["conv_tol_grad"])
-
-        solver.callback = callback
-        solver.check_convergence = check
-
-    def finish(self):
-        self.df.k_dtype = np.float64
-        if self.ni is not None:
-            self.ni.dtype = np.float64
-            self.cached_mb = max(self.cached_mb, self.ni.cached_mb)
-            self.ni.cache_mb = 0
-            self.ni.drop_cache()
-        self.early = False
-
-    def describe(self):
-        if not hasattr(self, "inner_cb"):
-            return ""
-        xc = " and XC grid sums" if self.ni is not None else ""
-        if self.cached_mb:
-            xc += f", float32 AO values kept: {self.cached_mb:.0f} MB"
-        return f" ({self.early_cycles} with float32 exchange{xc})"
-
-    def restore(self):
-        if not hasattr(self, "inner_cb"):  # nothing was changed
-            return
-        if self.early:
-            self.finish()
-        self.solver.callback = self.inner_cb
-        self.solver.check_convergence = None
-
-
 def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
     """Run an SCF through the fallback ladder; return (mf, step_name, cycles) or raise; cycles
     counts every step's (macro) cycles, those of the steps left unconverged included.
 
-    mixed_precision: float32 exchange until the orbital gradient is below K_FLOAT64_BELOW (only
-    for in-core CompactDF tensors)."""
+    dm0: a start density (a molecule with a d-block metal then starts with DIIS, see
+    :data:`SCF_LADDER_METAL_WARM`). mixed_precision: float32 exchange until the orbital gradient
+    is below K_FLOAT64_BELOW (only for in-core CompactDF tensors)."""
     dm = dm0
     tried = []
     total = 0    # cycles of every step tried: a stalled DIIS's cycles cost as much as any
-    ladder = ladder_for(mf.mol)
+    ladder = ladder_for(mf.mol, warm=dm0 is not None)
     handed_over = False   # the step before was left below its leave_below
     for name, attrs in ladder:
         attrs = dict(attrs or {})
@@ -459,7 +378,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         last = newton or name == ladder[-1][0]   # a second-order step never stalls out
         watch = _StallWatch(cycles, stall=not last, leave_below=leave_below, above=stall_above)
         solver.callback = _with_progress(watch, log, name, cycles)
-        early = _EarlyCycles(solver) if mixed_precision and not newton else None
+        early = EarlyCycles(solver) if mixed_precision and not newton else None
         stalled = None
         try:
             solver.kernel(dm0=dm)
