@@ -362,6 +362,18 @@ def test_a_stalled_scf_step_is_left_early():
         cb = _StallWatch([])
         for g in history:
             cb({"norm_gorb": g, "dm": None})
+    # the count starts again when the float32 cycles end (siteshift.qm.earlycycles): heme b in
+    # PCM sat at float32's |g| floor (2.6e-4) for 7 cycles; float64 DIIS gets its own count
+    cb = _StallWatch([], above=1e-5)
+    for k in range(STALL_MIN_CYCLES + 5):
+        env = {"norm_gorb": 2.6e-4, "dm": None}
+        if k == 8:
+            env["precision_switched"] = True
+        cb(env)
+        assert "precision_switched" not in env
+    with pytest.raises(_Stalled):
+        for _k in range(5):
+            cb({"norm_gorb": 2.6e-4, "dm": None})
     # the ladder's last step is never left early
     cb = _StallWatch([], stall=False)
     for g in [3.2] * (3 * STALL_MIN_CYCLES):

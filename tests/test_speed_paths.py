@@ -187,6 +187,22 @@ def test_float32_exchange_close_to_pyscf(meoh):
         assert np.max(np.abs(k1 - k0)) <= 1e-5 * np.max(np.abs(k0))
 
 
+def test_diis_history_is_cleared_when_the_float32_cycles_end():
+    # after clear_history, PySCF's DIIS extrapolates from the vectors pushed since (one vector:
+    # itself), as a fresh DIIS object does (pyscf.lib.diis.DIIS)
+    from pyscf.lib.diis import DIIS
+    from siteshift.qm.earlycycles import clear_history
+    rng = np.random.default_rng(3)
+    old, fresh = DIIS(), DIIS()
+    for _k in range(5):   # vectors with their error vectors, as CDIIS pushes them
+        old.update(rng.normal(size=6), xerr=rng.normal(size=6))
+    clear_history(old)
+    for _k in range(3):
+        x, e = rng.normal(size=6), rng.normal(size=6)
+        assert np.allclose(old.update(x, xerr=e), fresh.update(x, xerr=e), atol=1e-12)
+    assert old.get_num_vec() == fresh.get_num_vec() == 3
+
+
 def test_mixed_precision_scf_converges_to_the_float64_state():
     # float32 exchange for the early cycles must not change the converged state (same SCF,
     # float64 exchange throughout, as the reference) nor leave the tensor in float32 mode.

@@ -277,7 +277,8 @@ def ladder_for(mol, warm=False):
 #: noise near convergence never counts). A ladder step with a ``leave_below`` entry is also
 #: left once |g| falls below it, its density handed on; a step marked ``after_handover`` runs
 #: only after such a hand-over, and a ``stall_above`` entry sets a step's own floor
-#: (:data:`METAL_HANDOVER_BELOW`). Heme b (6-31G): DIIS sat at |g| ~ 3 for 100 cycles.
+#: (:data:`METAL_HANDOVER_BELOW`). Heme b (6-31G): DIIS sat at |g| ~ 3 for 100 cycles. The
+#: count starts again when the early float32 cycles end (:mod:`siteshift.qm.earlycycles`).
 STALL_MIN_CYCLES = 20
 STALL_WINDOW = 10
 STALL_RATIO = 0.5
@@ -305,7 +306,7 @@ class _StallWatch:
 
     def __init__(self, history, stall=True, leave_below=None, above=STALL_ABOVE):
         self.history, self.stall, self.leave_below = history, stall, leave_below
-        self.above = above
+        self.above, self.since = above, 0   # since: the cycle the stall rule counts from
         self.best_g, self.best_dm, self.best_cycle = np.inf, None, 0
 
     def __call__(self, env):
@@ -315,11 +316,14 @@ class _StallWatch:
         if g < self.best_g and env.get("dm") is not None:
             # PySCF's cycle makes a new density array each cycle: keeping the reference is safe
             self.best_g, self.best_dm, self.best_cycle = g, env["dm"], n
+        if env.pop("precision_switched", False):   # float64 from the next cycle: count anew
+            self.since = n
         if self.leave_below is not None and g < self.leave_below:
             raise _Stalled(g, reached=self.leave_below)
-        if self.stall and n >= STALL_MIN_CYCLES and g > self.above:
-            before = min(self.history[:-STALL_WINDOW])
-            recent = min(self.history[-STALL_WINDOW:])
+        counted = self.history[self.since:]
+        if self.stall and len(counted) >= STALL_MIN_CYCLES and g > self.above:
+            before = min(counted[:-STALL_WINDOW])
+            recent = min(counted[-STALL_WINDOW:])
             if recent > STALL_RATIO * before:
                 raise _Stalled(recent)
 
