@@ -133,6 +133,10 @@ def test_presets_and_explicit_keys():
     s = qm_settings({"preset": "full", "basis": "def2-tzvp"}, nstates=6)
     assert s.basis == "def2-tzvp" and s.grid_level == QM_PRESETS["full"]["grid_level"]
     assert s.nstates == 6 and s.eps_screen == 1.0
+    # nstates: the config's value, else the pigment type's (a heme's 6: Q and Soret), else the
+    # preset's
+    assert qm_settings({"preset": "demo"}, nstates=6).nstates == 6
+    assert qm_settings({"preset": "demo", "nstates": 2}, nstates=6).nstates == 2
     # the Davidson tolerance: the engine's default unless set (null in the schema)
     assert qm_settings({"response_tol": None}).response_tol == 3e-4
     assert qm_settings({"response_tol": 1e-5}).response_tol == 1e-5

@@ -286,19 +286,26 @@ STALL_ABOVE = 1e-3
 
 
 class _Stalled(Exception):
-    """Raised from an SCF callback to leave a step that stopped converging (or, with
-    ``reached``, one whose work is done: |g| below its step's ``leave_below``)."""
+    """Raised from an SCF callback to leave a step that stopped converging."""
 
-    def __init__(self, gorb, reached=None):
-        super().__init__(f"orbital gradient {gorb:.2e} below {reached:.0e}, handed on"
-                         if reached else f"orbital gradient stalled at {gorb:.2e}")
-        self.gorb, self.reached = gorb, reached
+    def __init__(self, gorb):
+        super().__init__(f"orbital gradient stalled at {gorb:.2e}")
+        self.gorb = gorb
+
+
+class _HandedOn(Exception):
+    """Raised from an SCF callback to leave a step whose work is done: |g| below its step's
+    ``leave_below``; the next step (marked ``after_handover``) takes over."""
+
+    def __init__(self, gorb, below):
+        super().__init__(f"orbital gradient {gorb:.2e} below {below:.0e}, handed on")
+        self.gorb = gorb
 
 
 class _StallWatch:
     """An SCF callback appending each cycle's |g| to history, keeping the density of the
     lowest |g| seen (``best_dm``, cycle ``best_cycle``), and raising :class:`_Stalled` when the
-    step stopped converging (see ``STALL_MIN_CYCLES``).
+    step stopped converging (see ``STALL_MIN_CYCLES``), :class:`_HandedOn` below ``leave_below``.
 
     A step left unconverged hands its best density on, not its last (a wandering DIIS on heme
     b ended at |g| 3.6 after passing 0.12). In the second-order step |g| is taken before an
@@ -319,7 +326,7 @@ class _StallWatch:
         if env.pop("precision_switched", False):   # float64 from the next cycle: count anew
             self.since = n
         if self.leave_below is not None and g < self.leave_below:
-            raise _Stalled(g, reached=self.leave_below)
+            raise _HandedOn(g, self.leave_below)
         counted = self.history[self.since:]
         if self.stall and len(counted) >= STALL_MIN_CYCLES and g > self.above:
             before = min(counted[:-STALL_WINDOW])
@@ -386,7 +393,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         stalled = None
         try:
             solver.kernel(dm0=dm)
-        except _Stalled as exc:
+        except (_Stalled, _HandedOn) as exc:
             stalled = exc
             solver.converged = False
         finally:
@@ -407,7 +414,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         if solver.converged:
             return solver, name, total
         dm = watch.hand_on(solver)
-        handed_over = bool(stalled is not None and stalled.reached)
+        handed_over = isinstance(stalled, _HandedOn)
     raise EngineError(f"SCF did not converge after the fallback ladder {tried}; try a smaller "
                       "basis, a different charge/multiplicity, or check the geometry for clashes")
 

@@ -129,11 +129,13 @@ def _check_mutations(name, v, variants, root):
 
 def qm_settings(qm: dict, eps_static=1.0, eps_optical=1.0, omega=None, nstates=None):
     """ExciteSettings from the config's `qm` section: schema defaults for keys it lacks, the
-    preset's values for keys left null."""
+    preset's values for keys left null (nstates: the pigment type's before the preset's)."""
     qm = fill(qm, "qm")
     chosen = preset(qm["preset"])
     pick = lambda k: qm[k] if qm.get(k) is not None else chosen.get(k)  # noqa: E731
-    n = pick("nstates") or nstates or DEFAULT_NSTATES
+    # the config's own value, else the pigment type's (a heme needs its Q and Soret states;
+    # 19HC's heme had neither among the demo preset's 3), else the preset's
+    n = qm.get("nstates") or nstates or chosen.get("nstates") or DEFAULT_NSTATES
     return ExciteSettings(
         alpha=float(qm["alpha"]),
         omega=float(omega if omega is not None else qm["omega"] or FALLBACK_OMEGA),
