@@ -379,3 +379,55 @@ def test_a_stalled_scf_step_is_left_early():
     for g in [3.2] * (3 * STALL_MIN_CYCLES):
         cb({"norm_gorb": g, "dm": None})
     assert len(cb.history) == 3 * STALL_MIN_CYCLES and cb.best_dm is None
+
+
+def test_stability_eigenvalue_equals_four_times_the_lowest_of_a_plus_b():
+    # The orbital Hessian of a closed shell over real rotations is 4(A + B) (Bauernschmitt &
+    # Ahlrichs, JCP 104, 9047 (1996), eq. for real orbitals; from memory), A and B PySCF's
+    # linear-response matrices (pyscf.tdscf get_ab, an independent route from the
+    # second-order solver's Hessian-vector product that siteshift.qm.stability uses).
+    # Water/6-31G, HF and the SRSH functional; measured ratio 4.0000000 (±1e-7) for both.
+    from pyscf import scf
+    from siteshift.qm.stability import lowest_hessian_eigenvalue
+    mol = gto.M(atom=[(e, c) for e, c in zip(*WATER)], basis="6-31g", verbose=0)
+    ks = dft.RKS(mol)
+    ks.xc = SRSH(alpha=0.2, omega=0.3, eps_screen=4.0).xc
+    for mf in (scf.RHF(mol), ks):
+        mf.conv_tol = 1e-11
+        mf.kernel()
+        lam, rotated = lowest_hessian_eigenvalue(mf, tol=1e-8)
+        a, b = mf.TDA().get_ab()
+        n = a.shape[0] * a.shape[1]
+        ref = np.linalg.eigvalsh((a + b).reshape(n, n))[0]
+        assert rotated is None and lam == pytest.approx(4 * ref, rel=1e-5)
+
+
+def test_a_metal_saddle_point_is_left_for_the_minimum():
+    # Fe–C–O (STO-3G) has several SCF solutions; ADIIS+DIIS ends on one at -1361.237395 Eh
+    # whose orbital Hessian has a negative eigenvalue (-0.066 Eh). run_scf started there finds
+    # the saddle, rotates along it and goes downhill with the second-order step, and ends on
+    # a minimum at least as low as the one PySCF's own second-order solver reaches from its
+    # minao guess. Measured: two restarts (-1361.241137, then -1361.241434), 22 s.
+    from siteshift.qm.scf import AdiisDiis
+    s = ExciteSettings(basis="sto-3g", grid_level=0, omega=0.3)
+    fe = build_molecule(["Fe", "C", "O"], [[0, 0, 0], [0, 0, 1.8], [0, 0, 2.95]],
+                        basis="sto-3g")
+    saddle = make_scf(fe, s)
+    saddle.DIIS, saddle.max_cycle, saddle.conv_tol = AdiisDiis, 200, 1e-10
+    saddle.kernel()
+    ref = make_scf(fe, s).newton()
+    ref.conv_tol = 1e-10
+    ref.kernel()
+    if abs(saddle.e_tot - ref.e_tot) < 1e-4:
+        pytest.skip("ADIIS reached the second-order solution in this process: no saddle")
+    lines = []
+    mf, _step, _n = run_scf(make_scf(fe, s), dm0=saddle.make_rdm1(), log=lines.append)
+    rec = mf.stability
+    assert rec["energies_eh"][0] == pytest.approx(saddle.e_tot, abs=1e-6)
+    assert rec["restarts"] >= 1 and rec["stable"] and rec["lowest_hessian_eigenvalue_eh"] > 0
+    # (in a lone run equal to it to 2e-9 Eh; inside a long process the solver from minao can
+    # end on a higher solution, so: at least as low)
+    assert mf.e_tot <= ref.e_tot + 1e-6 and mf.e_tot < saddle.e_tot - 1e-3
+    assert any("a saddle point" in m for m in lines)
+    # organic molecules are not checked unless asked
+    assert run_scf(make_scf(build_molecule(*WATER, basis="sto-3g"), s))[0].stability is None

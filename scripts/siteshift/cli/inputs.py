@@ -40,8 +40,8 @@ def read_xyz(path):
 
 
 def check_xyz_job(path, elements, coords, charge, multiplicity):
-    """The molecule checks of :func:`siteshift.qm.scf.check_molecule`, naming the file."""
-    from ..qm.scf import check_molecule
+    """The molecule checks of :func:`siteshift.qm.molecule.check_molecule`, naming the file."""
+    from ..qm.molecule import check_molecule
     if multiplicity < 1:
         raise InputError(f"--multiplicity {multiplicity}: a multiplicity is 2S+1 >= 1")
     check_molecule(elements, coords, charge, multiplicity - 1, source=str(path))

@@ -99,6 +99,8 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
         "scf_step": step,
         "scf_cycles": cycles,
         "scf_start": start or {"kind": "warm" if dm0 is not None else "cold"},
+        # metal molecules: the orbital Hessian's lowest eigenvalue (siteshift.qm.stability)
+        "scf_stability": mf.stability,
         "band_warnings": band_warnings,
         "homo_ev": float(homo),
         "lumo_ev": float(lumo),

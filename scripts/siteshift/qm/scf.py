@@ -11,7 +11,6 @@ import warnings
 
 import numpy as np
 from pyscf import dft, gto
-from pyscf.data.elements import ELEMENTS_PROTON
 from pyscf.scf import diis as scf_diis
 from pyscf.lib.exceptions import BasisNotFoundError
 
@@ -20,65 +19,11 @@ from .dfjk import CompactDF
 from .earlycycles import EarlyCycles
 from .embedding import attach_charges
 from .functional import SRSH
+from .molecule import check_molecule
 from .pcm import FactoredPCM, FittedPCM
 from .settings import EngineError, ExciteSettings
+from .stability import UNSTABLE_BELOW
 from .xcgrid import DenseNumInt
-
-#: Largest gap (Å) between the parts of one QM molecule: parts farther apart than this are
-#: taken for a misplaced atom or fragment (a coordinate typo, a 9999.999 placeholder), not a
-#: model. Supermolecular dimers and charge-transfer scans (≤ 15 Å apart) are far inside it.
-MAX_FRAGMENT_GAP_A = 50.0
-
-
-def check_molecule(elements, coords_ang, charge=0, spin=0, source="molecule"):
-    """Refuse input a QM job cannot mean, naming the atom and what to do (EngineError):
-    unknown elements, non-finite or placeholder coordinates, parts of the molecule more than
-    MAX_FRAGMENT_GAP_A apart, and impossible electron counts (an unknown basis is named by
-    :func:`build_molecule`, which loads it once)."""
-    from scipy.sparse.csgraph import connected_components
-    from scipy.spatial import cKDTree
-    coords = np.asarray(coords_ang, dtype=float).reshape(-1, 3)
-    if len(elements) != len(coords):
-        raise EngineError(f"{source}: {len(elements)} elements but {len(coords)} coordinates")
-    if len(elements) == 0:
-        raise EngineError(f"{source}: empty molecule")
-    z = []
-    for k, e in enumerate(elements, start=1):
-        sym = str(e).strip().capitalize()
-        zk = ELEMENTS_PROTON.get(sym, 0)
-        if zk <= 0:
-            raise EngineError(f"{source}: atom {k}: unknown element {e!r}; use a symbol of the "
-                              "periodic table (H, C, N, O, Fe, ...)")
-        z.append(zk)
-    bad = np.where(~np.isfinite(coords).all(axis=1))[0]
-    if len(bad):
-        raise EngineError(f"{source}: atom {bad[0] + 1} ({elements[bad[0]]}) has a non-finite "
-                          "coordinate (nan/inf); fix or remove it")
-    far = np.where((np.abs(coords) >= 9999.0).any(axis=1))[0]
-    if len(far):
-        raise EngineError(f"{source}: atom {far[0] + 1} ({elements[far[0]]}) sits at "
-                          f"{coords[far[0]].round(3).tolist()} Å, a placeholder, not a position; "
-                          "fix or remove it")
-    if len(coords) > 1:
-        n, labels = connected_components(
-            cKDTree(coords).sparse_distance_matrix(cKDTree(coords), MAX_FRAGMENT_GAP_A),
-            directed=False)
-        if n > 1:
-            main = np.bincount(labels).argmax()
-            k = int(np.where(labels != main)[0][0])
-            raise EngineError(f"{source}: atom {k + 1} ({elements[k]}) and its part of the "
-                              f"molecule are more than {MAX_FRAGMENT_GAP_A:g} Å from the rest; a "
-                              "misplaced fragment (check its coordinates) or two jobs")
-    nelec = int(sum(z)) - int(charge)
-    if nelec <= 0:
-        raise EngineError(f"{source}: charge {int(charge):+d} leaves {nelec} electrons "
-                          f"(nuclear charge {int(sum(z))}); check the charge")
-    if spin < 0 or spin > nelec or (nelec - int(spin)) % 2:
-        raise EngineError(f"{source}: {nelec} electrons (charge {int(charge):+d}) cannot have "
-                          f"2S = {int(spin)} unpaired electrons (multiplicity {int(spin) + 1}); "
-                          "an even electron count needs an odd multiplicity and vice versa")
-    return coords
-
 
 def build_molecule(elements, coords_ang, charge=0, spin=0, basis="def2-svp", max_memory_mb=4000,
                    verbose=0) -> gto.Mole:
@@ -264,8 +209,7 @@ def ladder_for(mol, warm=False):
     second order again if DIIS crawls) when it holds a d-block metal, DIIS first (then second
     order) if such a molecule starts from a given density (warm), else ADIIS+DIIS first for an
     open shell, else DIIS."""
-    elements = {mol.atom_pure_symbol(i) for i in range(mol.natm)}
-    if elements & D_BLOCK:
+    if _elements(mol) & D_BLOCK:
         return SCF_LADDER_METAL_WARM if warm else SCF_LADDER_METAL
     return SCF_LADDER_OPEN if mol.spin else SCF_LADDER
 
@@ -359,7 +303,83 @@ def _with_progress(callback, log, step, cycles):
     return wrapped
 
 
-def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
+#: Restarts along an instability (:mod:`siteshift.qm.stability`) a metal SCF may take (Fe–C–O
+#: needed two, see :func:`run_scf`).
+MAX_STABILITY_RESTARTS = 2
+
+
+def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True, stability=None):
+    """Run an SCF through the fallback ladder (:func:`ladder`), and for a molecule with a
+    d-block metal (or with stability=True) check that the solution is a minimum: while the
+    orbital Hessian has a negative eigenvalue, go on with the second-order step from the
+    orbitals rotated along it (at most MAX_STABILITY_RESTARTS times), and keep the lowest
+    solution. Fe–C–O (STO-3G): the ADIIS+DIIS solution −1361.237395 Eh has λ −0.066 Eh; two
+    restarts reach −1361.241137 (λ −3e-4), then −1361.241434 (λ +9e-4), the second-order
+    solver's own from minao. Return
+    (mf, step_name, cycles); the check is recorded as ``mf.stability`` (a dict, or None when
+    not run)."""
+    log_ = log or (lambda _m: None)
+    base = mf
+    plain = {k: getattr(base, k) for k in _STEP_ATTRS}   # the ladder's steps set these
+    mf, step, total = ladder(mf, dm0, log, max_cycle, mixed_precision)
+    mf.stability = None
+    if stability is False or (stability is None and not (_elements(mf.mol) & D_BLOCK)):
+        return mf, step, total
+    from .stability import lowest_hessian_eigenvalue
+    t = time.perf_counter()
+    lam, mo = lowest_hessian_eigenvalue(mf)
+    record = {"lowest_hessian_eigenvalue_eh": lam, "restarts": 0,
+              "energies_eh": [float(mf.e_tot)]}
+    log_(f"SCF stability: lowest orbital-Hessian eigenvalue {lam:.2e} Eh "
+         f"({'a saddle point' if mo is not None else 'a minimum'}), "
+         f"{time.perf_counter() - t:.1f} s")
+    best = (mf, step)
+    while mo is not None and record["restarts"] < MAX_STABILITY_RESTARTS:
+        record["restarts"] += 1
+        for k, v in plain.items():
+            setattr(base, k, v)
+        mf, step, n = _downhill(base.copy(), mo, mf.mo_occ, log, max_cycle, mixed_precision)
+        total += n
+        record["energies_eh"].append(float(mf.e_tot))
+        lam, mo = lowest_hessian_eigenvalue(mf)
+        log_(f"SCF stability, restart {record['restarts']}: E={mf.e_tot:.10f} Eh, lowest "
+             f"eigenvalue {lam:.2e} Eh")
+        if mf.e_tot < best[0].e_tot:
+            best = (mf, step)
+            record["lowest_hessian_eigenvalue_eh"] = lam
+    mf, step = best
+    record["stable"] = bool(record["lowest_hessian_eigenvalue_eh"] >= UNSTABLE_BELOW)
+    if not record["stable"]:
+        log_(f"warning: the SCF solution kept (E={mf.e_tot:.10f} Eh) is still a saddle point "
+             f"after {record['restarts']} restarts (eigenvalue "
+             f"{record['lowest_hessian_eigenvalue_eh']:.2e} Eh); recorded in scf_stability")
+    mf.stability = record
+    return mf, step, total
+
+
+_STEP_ATTRS = ("DIIS", "level_shift", "damp", "diis_start_cycle")
+
+
+def _downhill(mf, mo_coeff, mo_occ, log, max_cycle, mixed_precision):
+    """The second-order step from orbitals rotated off a saddle point (a minimiser: DIIS, a
+    fixed-point method, went back to the saddle on Fe–C–O), then the ladder if it fails."""
+    solver = mf.newton()
+    solver.max_cycle = max_cycle
+    cycles = []
+    solver.callback = _with_progress(lambda env: cycles.append(env.get("norm_gorb")), log,
+                                     "second_order (off the saddle)", cycles)
+    solver.kernel(mo_coeff=mo_coeff, mo_occ=mo_occ)
+    if solver.converged:
+        return solver, "second_order", len(cycles)
+    out, step, n = ladder(mf, solver.make_rdm1(), log, max_cycle, mixed_precision)
+    return out, step, n + len(cycles)
+
+
+def _elements(mol):
+    return {mol.atom_pure_symbol(i) for i in range(mol.natm)}
+
+
+def ladder(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
     """Run an SCF through the fallback ladder; return (mf, step_name, cycles) or raise; cycles
     counts every step's (macro) cycles, those of the steps left unconverged included.
 

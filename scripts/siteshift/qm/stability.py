@@ -1,0 +1,62 @@
+"""Internal stability of a converged SCF solution, and a restart along an instability.
+
+A solution is a local minimum of the energy over orbital rotations when the lowest eigenvalue
+of the orbital Hessian is not negative; a negative one marks a saddle point, and rotating the
+orbitals along its eigenvector leads downhill to a lower solution (Seeger & Pople, JCP 66, 3045
+(1977); Bauernschmitt & Ahlrichs, JCP 104, 9047 (1996)). The Hessian–vector products are PySCF's
+second-order solver's (``pyscf.soscf.newton_ah.gen_g_hop_rhf``/``_uhf``), as in
+``pyscf.scf.stability``, with the continuum's equilibrium response included (the ground state
+is in equilibrium with its continuum; PySCF's own stability analysis switches it on the same
+way). Metal molecules have several SCF solutions (the heme and Fe–C–O figures in
+:mod:`siteshift.qm.scf`), so :func:`siteshift.qm.scf.run_scf` checks theirs.
+"""
+from __future__ import annotations
+
+import contextlib
+
+import numpy as np
+
+#: Eigenvalue (Eh) below which a solution counts as unstable: PySCF's own threshold
+#: (``pyscf.scf.stability``: ``stable = not (e < -1e-5)``).
+UNSTABLE_BELOW = -1e-5
+#: Davidson convergence on the eigenvalue (Eh): PySCF's default for stability (``STAB_TOL``).
+STABILITY_TOL = 1e-4
+
+
+def lowest_hessian_eigenvalue(mf, tol=STABILITY_TOL):
+    """(λ, orbitals) for a converged RKS/UKS (or RHF/UHF) object: λ the lowest eigenvalue of
+    the orbital Hessian (Eh), and the orbitals rotated along its eigenvector when λ is below
+    UNSTABLE_BELOW (None otherwise)."""
+    from pyscf import lib
+    from pyscf.scf.stability import _rotate_mo
+    from pyscf.soscf import newton_ah
+    uhf = np.asarray(mf.mo_occ).ndim == 2
+    gen = newton_ah.gen_g_hop_uhf if uhf else newton_ah.gen_g_hop_rhf
+    sol = getattr(mf, "with_solvent", None)
+    equilibrium = (lib.temporary_env(sol, equilibrium_solvation=True)
+                   if sol is not None and not getattr(sol, "frozen", False)
+                   else contextlib.nullcontext())
+    with equilibrium:
+        g, hop, hdiag = gen(mf, mf.mo_coeff, mf.mo_occ, with_symmetry=False)
+        hdiag = hdiag * 2
+
+        def precond(dx, e, _x0):
+            d = hdiag - e
+            d[np.abs(d) < 1e-8] = 1e-8
+            return dx / d
+
+        x0 = np.zeros_like(g)
+        x0[g != 0] = 1.0 / hdiag[g != 0]
+        x0[np.argmin(hdiag)] = 1.0    # no symmetry: let the guess break it
+        # the Hessian is x2 + x2ᵀ of the vir-occ block PySCF's hop returns (pyscf.scf.stability)
+        e, v = lib.davidson(lambda x: hop(x).real * 2, x0, precond, tol=tol, nroots=1,
+                            verbose=0)
+    e = float(np.atleast_1d(e)[0])
+    if e >= UNSTABLE_BELOW:
+        return e, None
+    v = np.asarray(v).reshape(-1)
+    if not uhf:
+        return e, _rotate_mo(mf.mo_coeff, mf.mo_occ, v)
+    nov = int(np.count_nonzero(mf.mo_occ[0] > 0) * np.count_nonzero(mf.mo_occ[0] == 0))
+    return e, (_rotate_mo(mf.mo_coeff[0], mf.mo_occ[0], v[:nov]),
+               _rotate_mo(mf.mo_coeff[1], mf.mo_occ[1], v[nov:]))
