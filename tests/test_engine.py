@@ -431,3 +431,18 @@ def test_a_metal_saddle_point_is_left_for_the_minimum():
     assert any("a saddle point" in m for m in lines)
     # organic molecules are not checked unless asked
     assert run_scf(make_scf(build_molecule(*WATER, basis="sto-3g"), s))[0].stability is None
+
+
+def test_stability_without_the_continuum_response_is_an_upper_bound():
+    # The continuum's response term of the orbital Hessian is negative semidefinite (solvation
+    # energy −½ Vᵀ M V, M ⪰ 0; common practice), so leaving it out (the default, as in PySCF's
+    # second-order solver) can only raise the lowest eigenvalue. Formaldehyde/6-31G in
+    # IEF-PCM ε 20 against PySCF's own equilibrium response (pyscf.solvent gen_response).
+    from siteshift.qm.stability import lowest_hessian_eigenvalue
+    s = ExciteSettings(basis="6-31g", grid_level=1, omega=0.3, eps_static=20.0,
+                       eps_optical=2.0, conv_tol=1e-10)
+    mf, _, _ = run_scf(make_scf(build_molecule(*CH2O, basis="6-31g"), s))
+    without, r1 = lowest_hessian_eigenvalue(mf, tol=1e-7)
+    full, r2 = lowest_hessian_eigenvalue(mf, tol=1e-7, continuum_response=True)
+    assert r1 is None and r2 is None and 0 < full < without
+    assert mf.with_solvent.equilibrium_solvation is False   # left as it was

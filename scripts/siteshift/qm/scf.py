@@ -327,7 +327,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True, stabili
         return mf, step, total
     from .stability import lowest_hessian_eigenvalue
     t = time.perf_counter()
-    lam, mo = lowest_hessian_eigenvalue(mf)
+    lam, mo = lowest_hessian_eigenvalue(mf, log=log)
     record = {"lowest_hessian_eigenvalue_eh": lam, "restarts": 0,
               "energies_eh": [float(mf.e_tot)]}
     log_(f"SCF stability: lowest orbital-Hessian eigenvalue {lam:.2e} Eh "
@@ -341,7 +341,7 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True, stabili
         mf, step, n = _downhill(base.copy(), mo, mf.mo_occ, log, max_cycle, mixed_precision)
         total += n
         record["energies_eh"].append(float(mf.e_tot))
-        lam, mo = lowest_hessian_eigenvalue(mf)
+        lam, mo = lowest_hessian_eigenvalue(mf, log=log)
         log_(f"SCF stability, restart {record['restarts']}: E={mf.e_tot:.10f} Eh, lowest "
              f"eigenvalue {lam:.2e} Eh")
         if mf.e_tot < best[0].e_tot:
