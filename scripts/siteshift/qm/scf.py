@@ -200,7 +200,8 @@ SCF_LADDER_METAL = (("second_order", {"leave_below": METAL_HANDOVER_BELOW}),
 #: (stalling out down to METAL_DIIS_STALL_ABOVE), then second order. Heme alone (19HC, 6-31G,
 #: SRSH, IEF-PCM ε 4) from its converged gas-phase density: |g| 2.7e-3 at the start; second
 #: order took 295 s and 350 s for its first two iterations, and |g| rose to 4.7e-3 in them.
-SCF_LADDER_METAL_WARM = (("diis", {"DIIS": scf_diis.CDIIS, "stall_above": METAL_DIIS_STALL_ABOVE}),
+SCF_LADDER_METAL_WARM = (("diis", {"DIIS": scf_diis.CDIIS,
+                                    "stall_above": METAL_DIIS_STALL_ABOVE}),
                          ("second_order", None), SCF_LADDER[1])
 
 
