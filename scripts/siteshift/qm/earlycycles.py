@@ -74,12 +74,11 @@ class EarlyCycles:
                 # off in its excitations
                 self.stalled = self.stalled + 1 if gorb > EARLY_PROGRESS * self.best_gorb else 0
                 self.best_gorb = min(self.best_gorb, gorb)
-                if gorb < K_FLOAT64_BELOW:
+                if gorb < K_FLOAT64_BELOW or self.stalled >= 2:
                     self.finish()
-                elif self.stalled >= 2:
-                    self.finish()
-                    clear_history(env.get("mf_diis"))
-                    env["precision_switched"] = True
+                    if gorb >= K_FLOAT64_BELOW:   # ended on the noise floor
+                        clear_history(env.get("mf_diis"))
+                        env["precision_switched"] = True
                 elif self.ni is not None and not self.ni.cache_mb:
                     # both fitted tensors exist after the first cycle: what memory is left
                     # may keep the float32 AO values on the grid for the cycles to come

@@ -7,8 +7,9 @@ orbitals along its eigenvector leads downhill to a lower solution (Seeger & Popl
 second-order solver's (``pyscf.soscf.newton_ah.gen_g_hop_rhf``/``_uhf``), as in
 ``pyscf.scf.stability``; the continuum's equilibrium response can be included (PySCF's own
 stability analysis switches it on), and is left out by default, which gives an upper
-bound of the eigenvalue (see :func:`lowest_hessian_eigenvalue`). Metal molecules have several SCF solutions (the heme and
-Fe–C–O figures in :mod:`siteshift.qm.scf`), so :func:`siteshift.qm.scf.run_scf` checks theirs.
+bound of the eigenvalue (see :func:`lowest_hessian_eigenvalue`). Metal molecules have several
+SCF solutions (the heme and Fe–C–O figures in :mod:`siteshift.qm.scf`), so
+:func:`siteshift.qm.scf.run_scf` checks theirs.
 """
 from __future__ import annotations
 
