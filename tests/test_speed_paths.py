@@ -203,6 +203,29 @@ def test_diis_history_is_cleared_when_the_float32_cycles_end():
     assert old.get_num_vec() == fresh.get_num_vec() == 3
 
 
+def test_float32_cycles_ending_on_their_noise_floor_tell_the_stall_watch():
+    # |g| that stops falling (two cycles without a 20 % fall, EARLY_PROGRESS) above
+    # K_FLOAT64_BELOW ends the float32 cycles, clears the DIIS history and calls on_noise_floor
+    # (the SCF's stall watch counts anew); falling below K_FLOAT64_BELOW ends them without
+    from pyscf.lib.diis import DIIS
+    from siteshift.qm.earlycycles import EarlyCycles
+    s = ExciteSettings(alpha=0.2, omega=0.3, eps_static=4.0, basis="6-31g", grid_level=1,
+                       lebedev_order=11)
+    for gs, floor in (([1e-2, 2.6e-4, 2.7e-4, 2.65e-4], True), ([1e-2, 1e-3, 5e-5], False)):
+        mf, calls = make_scf(build_molecule(*CH2O, basis=s.basis), s), []
+        early = EarlyCycles(mf, on_noise_floor=lambda: calls.append("floor"))
+        diis = DIIS()
+        for _k in range(3):
+            diis.update(np.ones(4), xerr=np.ones(4))
+        for k, g in enumerate(gs):
+            assert early.early and mf.with_df.k_dtype == np.float32
+            mf.callback({"norm_gorb": g, "mf_diis": diis})
+        assert not early.early and mf.with_df.k_dtype == np.float64 and early.early_cycles == k + 1
+        assert calls == (["floor"] if floor else [])
+        assert diis.get_num_vec() == (0 if floor else 3)
+        early.restore()
+
+
 def test_mixed_precision_scf_converges_to_the_float64_state():
     # float32 exchange for the early cycles must not change the converged state (same SCF,
     # float64 exchange throughout, as the reference) nor leave the tensor in float32 mode.

@@ -45,9 +45,12 @@ class EarlyCycles:
     :class:`CompactDF` ground state takes part; its :class:`DenseNumInt` grid sums follow the
     same switch. (A coarse XC grid for the same early cycles was
     tried and dropped: grid 0 before grid 1 took 22 cycles instead of 12 on that molecule.)
+
+    on_noise_floor: called when the float32 cycles end on their noise floor rather than below
+    K_FLOAT64_BELOW (the SCF's stall watch then starts its count again).
     """
 
-    def __init__(self, solver):
+    def __init__(self, solver, on_noise_floor=None):
         self.solver = solver
         self.df = getattr(solver, "with_df", None)
         self.early = isinstance(self.df, CompactDF)
@@ -78,7 +81,8 @@ class EarlyCycles:
                     self.finish()
                     if gorb >= K_FLOAT64_BELOW:   # ended on the noise floor
                         clear_history(env.get("mf_diis"))
-                        env["precision_switched"] = True
+                        if on_noise_floor is not None:
+                            on_noise_floor()
                 elif self.ni is not None and not self.ni.cache_mb:
                     # both fitted tensors exist after the first cycle: what memory is left
                     # may keep the float32 AO values on the grid for the cycles to come

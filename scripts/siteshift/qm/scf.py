@@ -260,6 +260,12 @@ class _StallWatch:
         self.history, self.stall, self.leave_below = history, stall, leave_below
         self.above, self.since = above, 0   # since: the cycle the stall rule counts from
         self.best_g, self.best_dm, self.best_cycle = np.inf, None, 0
+        self._anew = False
+
+    def count_anew(self):
+        """Start the stall count again after the current cycle (the float32 cycles ended on
+        their noise floor: float64 DIIS gets a count of its own)."""
+        self._anew = True
 
     def __call__(self, env):
         g = float(env.get("norm_gorb", np.inf))
@@ -268,8 +274,8 @@ class _StallWatch:
         if g < self.best_g and env.get("dm") is not None:
             # PySCF's cycle makes a new density array each cycle: keeping the reference is safe
             self.best_g, self.best_dm, self.best_cycle = g, env["dm"], n
-        if env.pop("precision_switched", False):   # float64 from the next cycle: count anew
-            self.since = n
+        if self._anew:
+            self.since, self._anew = n, False
         if self.leave_below is not None and g < self.leave_below:
             raise _HandedOn(g, self.leave_below)
         counted = self.history[self.since:]
@@ -410,7 +416,8 @@ def ladder(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
         last = newton or name == ladder[-1][0]   # a second-order step never stalls out
         watch = _StallWatch(cycles, stall=not last, leave_below=leave_below, above=stall_above)
         solver.callback = _with_progress(watch, log, name, cycles)
-        early = EarlyCycles(solver) if mixed_precision and not newton else None
+        early = (EarlyCycles(solver, on_noise_floor=watch.count_anew)
+                 if mixed_precision and not newton else None)
         stalled = None
         try:
             solver.kernel(dm0=dm)
