@@ -334,9 +334,10 @@ def run_scf(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True, stabili
         return mf, step, total
     from .stability import lowest_hessian_eigenvalue
     t = time.perf_counter()
-    lam, mo = lowest_hessian_eigenvalue(mf, log=log)
+    info = {}
+    lam, mo = lowest_hessian_eigenvalue(mf, log=log, info=info)
     record = {"lowest_hessian_eigenvalue_eh": lam, "restarts": 0,
-              "energies_eh": [float(mf.e_tot)]}
+              "energies_eh": [float(mf.e_tot)], **info}
     log_(f"SCF stability: lowest orbital-Hessian eigenvalue {lam:.2e} Eh "
          f"({'a saddle point' if mo is not None else 'a minimum'}), "
          f"{time.perf_counter() - t:.1f} s")

@@ -16,6 +16,11 @@ from __future__ import annotations
 import contextlib
 
 import numpy as np
+from pyscf import lib
+
+from .dfjk import CompactDF, all_blas_threads
+from .fasttda import FastTDA
+from .settings import ExciteSettings
 
 #: Eigenvalue (Eh) below which a solution counts as unstable: PySCF's own threshold
 #: (``pyscf.scf.stability``: ``stable = not (e < -1e-5)``).
@@ -26,16 +31,23 @@ GUESS_VECTORS = 8
 STABILITY_TOL = 1e-4
 
 
-def lowest_hessian_eigenvalue(mf, tol=STABILITY_TOL, log=None, continuum_response=False):
+def lowest_hessian_eigenvalue(mf, tol=STABILITY_TOL, log=None, continuum_response=None,
+                              route="auto", info=None):
     """(λ, orbitals) for a converged RKS/UKS (or RHF/UHF) object: λ the lowest eigenvalue of
     the orbital Hessian (Eh), and the orbitals rotated along its eigenvector when λ is below
     UNSTABLE_BELOW (None otherwise). log: each Hessian–vector product's time.
 
+    route: "mo" computes the products in the MO basis (:class:`MOHessian`: closed-shell GGA
+    or hybrid KS with fitted tensors, the fast TDA's machinery), "pyscf" with PySCF's
+    second-order solver; "auto" takes "mo" where it applies. info (a dict, optional) receives
+    the route taken, the number of products and whether the continuum's response was in
+    (None without a continuum).
+
     continuum_response: include the continuum's equilibrium response to the rotated density
-    in the Hessian (PySCF's ``gen_response`` with ``equilibrium_solvation``). Off by default,
-    as in PySCF's second-order solver: PySCF recomputes the surface integrals for every
+    (None: on the "mo" route, where it costs one small matrix product, off on the "pyscf"
+    route, as in PySCF's second-order solver: PySCF recomputes the surface integrals for every
     product, and the check of heme b in IEF-PCM (19HC, 6-31G) had not ended after 17 min with
-    it. The term is negative semidefinite (the solvation energy −½ Vᵀ M V of any charge
+    it). The term is negative semidefinite (the solvation energy −½ Vᵀ M V of any charge
     distribution is negative; with it, vᵀHv along a random v of formaldehyde in IEF-PCM ε 20
     equals the finite-difference second derivative of the PCM SCF energy, 22.00796, against
     22.03581 without), so λ without it is an upper bound: a negative λ is a true instability,
@@ -43,43 +55,39 @@ def lowest_hessian_eigenvalue(mf, tol=STABILITY_TOL, log=None, continuum_respons
     without, 0.6294 Eh with the response, from the full matrices)."""
     import time
 
-    from pyscf import lib
     from pyscf.scf.stability import _rotate_mo
-    from pyscf.soscf import newton_ah
     uhf = np.asarray(mf.mo_occ).ndim == 2
-    gen = newton_ah.gen_g_hop_uhf if uhf else newton_ah.gen_g_hop_rhf
-    sol = getattr(mf, "with_solvent", None)
-    equilibrium = (lib.temporary_env(sol, equilibrium_solvation=bool(continuum_response))
-                   if sol is not None and not getattr(sol, "frozen", False)
-                   else contextlib.nullcontext())
-    with equilibrium:
-        g, hop, hdiag = gen(mf, mf.mo_coeff, mf.mo_occ, with_symmetry=False)
-        hdiag = hdiag * 2
-
+    if route not in ("auto", "mo", "pyscf"):
+        raise ValueError(f"stability route {route!r}: use 'auto', 'mo' or 'pyscf'")
+    mo_route = route == "mo" or (route == "auto" and MOHessian.applies(mf))
+    response = mo_route if continuum_response is None else bool(continuum_response)
+    has_continuum = getattr(mf, "with_solvent", None) is not None
+    with _products(mf, mo_route, response, log) as (hop, hdiag, x0):
         def precond(dx, e, _x0):
             d = hdiag - e
             d[np.abs(d) < 1e-8] = 1e-8
             return dx / d
 
-        x0 = np.zeros_like(g)
-        x0[g != 0] = 1.0 / hdiag[g != 0]
         x0[np.argmin(hdiag)] = 1.0    # no symmetry: let the guess break it
         # and unit vectors on the lowest diagonal elements: from the one vector above, the
         # Davidson missed the lowest root of formaldehyde in IEF-PCM with the continuum's
         # response (1.3356 Eh found, 0.6294 Eh the lowest of the full matrix)
-        x0 = [x0] + [np.eye(1, len(g), k).ravel() for k in np.argsort(hdiag)[:GUESS_VECTORS]]
-        # the Hessian is x2 + x2ᵀ of the vir-occ block PySCF's hop returns (pyscf.scf.stability)
+        x0 = [x0] + [np.eye(1, len(hdiag), k).ravel()
+                     for k in np.argsort(hdiag)[:GUESS_VECTORS]]
         count = [0]
 
         def hessian_x(x):
             t = time.perf_counter()
-            out = hop(x).real * 2
+            out = hop(x)
             count[0] += 1
             if log:
                 log(f"stability: Hessian product {count[0]}, {time.perf_counter() - t:.1f} s")
             return out
 
         e, v = lib.davidson(hessian_x, x0, precond, tol=tol, nroots=1, verbose=0)
+    if info is not None:
+        info.update(route="mo" if mo_route else "pyscf", products=count[0],
+                    continuum_response=response if has_continuum else None)
     e = float(np.atleast_1d(e)[0])
     v = v[0] if isinstance(v, list) else v
     if e >= UNSTABLE_BELOW:
@@ -90,3 +98,131 @@ def lowest_hessian_eigenvalue(mf, tol=STABILITY_TOL, log=None, continuum_respons
     nov = int(np.count_nonzero(mf.mo_occ[0] > 0) * np.count_nonzero(mf.mo_occ[0] == 0))
     return e, (_rotate_mo(mf.mo_coeff[0], mf.mo_occ[0], v[:nov]),
                _rotate_mo(mf.mo_coeff[1], mf.mo_occ[1], v[nov:]))
+
+
+@contextlib.contextmanager
+def _products(mf, mo_route, response, log):
+    """(hop, hdiag, x0) in PySCF's layout (virtual-major over occupied-virtual pairs of each
+    spin): hop(x) the Hessian–vector product, hdiag its diagonal approximation, x0 a first
+    guess (1/hdiag on the nonzero gradient elements)."""
+    if mo_route:
+        h = MOHessian(mf, continuum_response=response, log=log)
+        hdiag = 4.0 * h.e_ia.T.ravel()
+        with all_blas_threads():
+            yield h.hop, hdiag, 1.0 / hdiag
+        return
+    from pyscf.soscf import newton_ah
+    uhf = np.asarray(mf.mo_occ).ndim == 2
+    gen = newton_ah.gen_g_hop_uhf if uhf else newton_ah.gen_g_hop_rhf
+    sol = getattr(mf, "with_solvent", None)
+    equilibrium = (lib.temporary_env(sol, equilibrium_solvation=response)
+                   if sol is not None and not getattr(sol, "frozen", False)
+                   else contextlib.nullcontext())
+    with equilibrium:
+        g, hop, hdiag = gen(mf, mf.mo_coeff, mf.mo_occ, with_symmetry=False)
+        hdiag = hdiag * 2
+        x0 = np.zeros_like(g)
+        x0[g != 0] = 1.0 / hdiag[g != 0]
+        # the Hessian is x2 + x2ᵀ of the vir-occ block PySCF's hop returns (pyscf.scf.stability)
+        yield (lambda x: hop(x).real * 2), hdiag, x0
+
+
+class MOHessian(FastTDA):
+    """The orbital Hessian of a closed-shell KS (or HF) solution over real rotations, 4(A + B),
+    applied in the MO basis with the fast TDA's fitted MO tensors, XC kernel and PCM operator
+    (:class:`siteshift.qm.fasttda.FastTDA`, which applies A):
+
+    (A + B) x = Δε x + 4 (ia|jb) x − c [(ij|ab) + (ib|ja)] x (full and long-range parts)
+                + 2 f_xc x + 4 Vᵀ M V x
+
+    with M for the SCF's own (static) ε: the continuum's equilibrium response, as the SCF
+    energy's second derivative has it (continuum_response=False leaves it out). The
+    (ib|ja) x term is Σ_P (B^P xᵀ B^P)_ia over the occupied-virtual tensors. The ground
+    state's fitted AO tensors are kept (the fast TDA releases them): a restart's SCF and the
+    excitations use them next. For heme b the products of PySCF's second-order solver spent
+    most of their time building exchange in the AO basis from densities of rank 2·n_occ.
+    """
+
+    def __init__(self, mf, continuum_response=True, log=None):
+        sol = getattr(mf, "with_solvent", None)
+        with_df = mf.with_df
+        storage = getattr(with_df, "storage", np.dtype(np.float64))
+        settings = ExciteSettings(
+            eps_static=float(sol.eps) if sol is not None else 1.0,
+            grid_level=int(mf.grids.level), response_grid_level=None, occ_window_ev=None,
+            vir_window_ev=None, equilibrium=True, max_memory_mb=int(mf.max_memory),
+            df_storage="float32" if np.dtype(storage) == np.float32 else "float64",
+            auxbasis=getattr(with_df, "auxbasis", None))
+        self.continuum_response = bool(continuum_response and sol is not None)
+        if not self.continuum_response and sol is not None:
+            # no PCM operator: FastTDA builds it only for an object with a solvent
+            mf = _without_solvent(mf)
+        super().__init__(mf, settings, log=log)
+
+    @staticmethod
+    def applies(mf):
+        """Closed-shell RKS with fitted tensors (CompactDF or PySCF's) and a GGA-type
+        functional (hybrids and range-separated hybrids included; the XC kernel is GGA only)."""
+        if np.asarray(mf.mo_occ).ndim != 1 or mf.mol.spin != 0 or \
+                getattr(mf, "with_df", None) is None or not hasattr(mf, "_numint"):
+            return False
+        return mf._numint._xc_type(mf.xc) == "GGA"
+
+    def _ao_blocks(self, mol, omega):
+        with_df = getattr(self.mf, "with_df", None)
+        if isinstance(with_df, CompactDF):
+            return with_df.naux(omega or 0.0), with_df.blocks(
+                omega or 0.0, rows=max(1, int(3e8 / 8 / mol.nao ** 2)), consume=False)
+        return super()._ao_blocks(mol, omega)
+
+    def _build_df(self, mol):
+        with all_blas_threads():
+            self.Bov, self.Boo, self.Bvv = self._mo_tensors(mol)
+            self.Lov = self.Loo = self.Lvv = None
+            if self.omega != 0 and abs(self.c_lr - self.c_sr) > 0:
+                self.Lov, self.Loo, self.Lvv = self._mo_tensors(mol, omega=self.omega)
+
+    @staticmethod
+    def _exchange_b(xs, Bov, rows=64):
+        """Σ_jb (ib|ja) x_jb = Σ_P (B^P xᵀ B^P)_ia for every trial vector."""
+        out = np.zeros_like(xs)
+        for p0, p1 in ((p, min(p + rows, len(Bov))) for p in range(0, len(Bov), rows)):
+            b = Bov[p0:p1]
+            for k, x in enumerate(xs):
+                out[k] += np.einsum("pij,pja->ia", b @ x.T, b, optimize=True)
+        return out
+
+    def apb(self, xs):
+        """(A + B) x for trial vectors xs (n, n_occ, n_vir)."""
+        xs = np.asarray(xs).reshape(-1, self.nocc, self.nvir)
+        out = xs * self.e_ia
+        bov = self.Bov.reshape(len(self.Bov), -1)
+        t = xs.reshape(len(xs), -1) @ bov.T
+        coef = 4.0 * t
+        if self.W is not None:   # fitted PCM: 4 Vᵀ M V x with V = Wᵀ B
+            coef += 4.0 * (((t @ self.W) @ self.M.T) @ self.W.T)
+        out += (coef @ bov).reshape(out.shape)
+        for c, Boo, Bvv, Bov in ((self.c_sr, self.Boo, self.Bvv, self.Bov),
+                                 (self.c_lr - self.c_sr, self.Loo, self.Lvv, self.Lov)):
+            if c == 0 or Boo is None:
+                continue
+            out -= c * (self._exchange(xs, Boo, Bvv) + self._exchange_b(xs, Bov))
+        if self.V is not None:
+            vg = lib.einsum("gia,xia->xg", self.V, xs)
+            out += 4.0 * lib.einsum("gia,xg->xia", self.V, vg @ self.M.T)
+        out += 2.0 * self.kernel_xc(xs)
+        return out
+
+    def hop(self, x):
+        """4 (A + B) x in PySCF's layout: x over (virtual, occupied) pairs, flattened."""
+        x = np.asarray(x).reshape(self.nvir, self.nocc).T
+        return 4.0 * self.apb(x[None])[0].T.ravel()
+
+
+def _without_solvent(mf):
+    """The same SCF object's orbitals on an object without the continuum (for a Hessian
+    without its response: the vacuum parts only)."""
+    bare = mf.undo_solvent() if hasattr(mf, "undo_solvent") else mf
+    for k in ("mo_coeff", "mo_occ", "mo_energy", "e_tot", "converged"):
+        setattr(bare, k, getattr(mf, k))
+    return bare
