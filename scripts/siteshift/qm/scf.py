@@ -371,7 +371,7 @@ _STEP_ATTRS = ("DIIS", "level_shift", "damp", "diis_start_cycle")
 def _downhill(mf, mo_coeff, mo_occ, log, max_cycle, mixed_precision):
     """The second-order step from orbitals rotated off a saddle point (a minimiser: DIIS, a
     fixed-point method, went back to the saddle on Fe–C–O), then the ladder if it fails."""
-    solver = mf.newton()
+    solver = _second_order(mf, log)
     solver.max_cycle = max_cycle
     cycles = []
     solver.callback = _with_progress(lambda env: cycles.append(env.get("norm_gorb")), log,
@@ -381,6 +381,15 @@ def _downhill(mf, mo_coeff, mo_occ, log, max_cycle, mixed_precision):
         return solver, "second_order", len(cycles)
     out, step, n = ladder(mf, solver.make_rdm1(), log, max_cycle, mixed_precision)
     return out, step, n + len(cycles)
+
+
+def _second_order(mf, log=None):
+    """PySCF's second-order solver, with MO-basis Hessian products where they apply
+    (:func:`siteshift.qm.stability.use_mo_hessian`)."""
+    from .stability import use_mo_hessian
+    solver = mf.newton()
+    use_mo_hessian(solver, log)
+    return solver
 
 
 def _elements(mol):
@@ -407,7 +416,7 @@ def ladder(mf, dm0=None, log=None, max_cycle=100, mixed_precision=True):
             continue
         newton = name == "second_order"
         if newton:
-            solver = mf.newton()
+            solver = _second_order(mf, log)
         else:
             solver = mf
             for k, v in attrs.items():
