@@ -164,7 +164,9 @@ class MOHessian(FastTDA):
     def applies(mf):
         """Closed-shell RKS with fitted tensors (CompactDF or PySCF's) and a GGA-type
         functional (hybrids and range-separated hybrids included; the XC kernel is GGA only)."""
-        if np.asarray(mf.mo_occ).ndim != 1 or mf.mol.spin != 0 or \
+        from pyscf.scf import hf, rohf
+        # by class, not by mo_occ: a second-order solver is set up before it has orbitals
+        if not isinstance(mf, hf.RHF) or isinstance(mf, rohf.ROHF) or mf.mol.spin != 0 or \
                 getattr(mf, "with_df", None) is None or not hasattr(mf, "_numint"):
             return False
         return mf._numint._xc_type(mf.xc) == "GGA"
