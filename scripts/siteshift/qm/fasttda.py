@@ -219,17 +219,21 @@ class FastTDA:
             acc += c.T
         return acc.reshape(no, nx, nv).transpose(1, 0, 2)
 
+    def _coulomb(self, xs, factor):
+        """factor · [(ia|jb) + Vᵀ M V (fitted PCM)] x: two matrix products over B_ov viewed as
+        (naux, o·v) (the A matrix has factor 2, A + B factor 4)."""
+        bov = self.Bov.reshape(len(self.Bov), -1)
+        t = xs.reshape(len(xs), -1) @ bov.T
+        coef = factor * t
+        if self.W is not None:  # fitted PCM: V = Wᵀ B
+            coef += factor * (((t @ self.W) @ self.M.T) @ self.W.T)
+        return (coef @ bov).reshape(xs.shape)
+
     def matvec(self, xs):
         t0 = time.perf_counter()
         xs = np.asarray(xs).reshape(-1, self.nocc, self.nvir)
         out = xs * self.e_ia
-        # Coulomb: 2 (ia|jb) x_jb, two matrix products over B_ov viewed as (naux, o·v)
-        bov = self.Bov.reshape(len(self.Bov), -1)
-        t = xs.reshape(len(xs), -1) @ bov.T
-        coef = 2.0 * t
-        if self.W is not None:  # fitted PCM: 2 Vᵀ M V x with V = Wᵀ B
-            coef += 2.0 * (((t @ self.W) @ self.M.T) @ self.W.T)
-        out += (coef @ bov).reshape(out.shape)
+        out += self._coulomb(xs, 2.0)
         # exact exchange: c (ij|ab) x_jb = Σ_P Σ_b (Σ_j B_ij x_jb) B_ab, in the precision of the
         # stored B_ab, which is unpacked one auxiliary block at a time into a reused buffer
         for c, Boo, Bvv in ((self.c_sr, self.Boo, self.Bvv),

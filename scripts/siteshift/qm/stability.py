@@ -203,12 +203,7 @@ class MOHessian(FastTDA):
         else:   # x F_vv − F_oo x (F symmetric) in place of Δε x
             foo, fvv = self.fock_oo_vv
             out = xs @ fvv - np.matmul(foo, xs)
-        bov = self.Bov.reshape(len(self.Bov), -1)
-        t = xs.reshape(len(xs), -1) @ bov.T
-        coef = 4.0 * t
-        if self.W is not None:   # fitted PCM: 4 Vᵀ M V x with V = Wᵀ B
-            coef += 4.0 * (((t @ self.W) @ self.M.T) @ self.W.T)
-        out += (coef @ bov).reshape(out.shape)
+        out += self._coulomb(xs, 4.0)
         for c, Boo, Bvv, Bov in ((self.c_sr, self.Boo, self.Bvv, self.Bov),
                                  (self.c_lr - self.c_sr, self.Loo, self.Lvv, self.Lov)):
             if c == 0 or Boo is None:
