@@ -128,7 +128,7 @@ def _products(mf, mo_route, response, log):
 
 
 class MOHessian(FastTDA):
-    """The orbital Hessian of a closed-shell KS (or HF) solution over real rotations, 4(A + B),
+    """The orbital Hessian of a closed-shell KS solution over real rotations, 4(A + B),
     applied in the MO basis with the fast TDA's fitted MO tensors, XC kernel and PCM operator
     (:class:`siteshift.qm.fasttda.FastTDA`, which applies A):
 
@@ -154,7 +154,9 @@ class MOHessian(FastTDA):
             vir_window_ev=None, equilibrium=True, max_memory_mb=int(mf.max_memory),
             df_storage="float32" if np.dtype(storage) == np.float32 else "float64",
             auxbasis=getattr(with_df, "auxbasis", None))
-        self.continuum_response = bool(continuum_response and sol is not None)
+        # a frozen reaction field does not answer the density (as on PySCF's route)
+        self.continuum_response = bool(continuum_response and sol is not None
+                                       and not getattr(sol, "frozen", False))
         if not self.continuum_response and sol is not None:
             # no PCM operator: FastTDA builds it only for an object with a solvent
             mf = _without_solvent(mf)
