@@ -220,14 +220,18 @@ class FastTDA:
         return acc.reshape(no, nx, nv).transpose(1, 0, 2)
 
     def _coulomb(self, xs, factor):
-        """factor · [(ia|jb) + Vᵀ M V (fitted PCM)] x: two matrix products over B_ov viewed as
+        """factor · [(ia|jb) + Vᵀ M V (PCM, fitted or from surface integrals)] x: two matrix products over B_ov viewed as
         (naux, o·v) (the A matrix has factor 2, A + B factor 4)."""
         bov = self.Bov.reshape(len(self.Bov), -1)
         t = xs.reshape(len(xs), -1) @ bov.T
         coef = factor * t
         if self.W is not None:  # fitted PCM: V = Wᵀ B
             coef += factor * (((t @ self.W) @ self.M.T) @ self.W.T)
-        return (coef @ bov).reshape(xs.shape)
+        out = (coef @ bov).reshape(xs.shape)
+        if self.V is not None:  # PCM from surface potential integrals V_g,ia
+            vg = lib.einsum("gia,xia->xg", self.V, xs)
+            out += factor * lib.einsum("gia,xg->xia", self.V, vg @ self.M.T)
+        return out
 
     def matvec(self, xs):
         t0 = time.perf_counter()
@@ -241,11 +245,6 @@ class FastTDA:
             if c == 0 or Boo is None:
                 continue
             out -= c * self._exchange(xs, Boo, Bvv)
-        # non-equilibrium PCM: 2 Vᵀ M V x
-        if self.V is not None:
-            vg = lib.einsum("gia,xia->xg", self.V, xs)
-            q = vg @ self.M.T
-            out += 2.0 * lib.einsum("gia,xg->xia", self.V, q)
         t1 = time.perf_counter()
         # XC kernel on the response grid, in the MO basis
         out += self.kernel_xc(xs)

@@ -211,9 +211,6 @@ class MOHessian(FastTDA):
             if c == 0 or Boo is None:
                 continue
             out -= c * (self._exchange(xs, Boo, Bvv) + self._exchange_b(xs, Bov))
-        if self.V is not None:
-            vg = lib.einsum("gia,xia->xg", self.V, xs)
-            out += 4.0 * lib.einsum("gia,xg->xia", self.V, vg @ self.M.T)
         out += 2.0 * self.kernel_xc(xs)
         return out
 
