@@ -112,6 +112,24 @@ def test_first_order_sign_flips_across_the_molecule_and_vanishes_far_away(ch2o_s
         assert abs(far) * HARTREE2EV * 1000 < 0.05   # meV
 
 
+@pytest.mark.parametrize("eps", [1.0, 4.0])
+def test_z_vector_products_in_the_mo_basis_equal_pyscfs_ao_response(ch2o_states, eps):
+    # an independent route: PySCF's own density response (mf.gen_response, with the PCM
+    # object's equilibrium reaction field) to the symmetric density of a rotation z, projected
+    # on the virtual-occupied block, against the MO-basis (A + B - Δε) z of the fitted tensors
+    from siteshift.qm.relaxed import _coupling_products
+    s, _mol, mf, _e, xs, P = ch2o_states[eps]
+    nocc = int((mf.mo_occ > 0).sum())
+    z = np.random.default_rng(3).normal(size=(3, len(mf.mo_occ) - nocc, nocc))
+    mo, ao = _coupling_products(mf, "mo", None)(z), _coupling_products(mf, "ao", None)(z)
+    assert np.abs(ao).max() > 0.1
+    assert np.abs(mo - ao).max() < 1e-9 * np.abs(ao).max()
+    # the fixture's densities took the MO route ("auto"); the AO route gives the same
+    for k in range(2):
+        P_ao = relaxed_difference_density(mf, xs[k], s, route="ao")
+        assert np.abs(P[k] - P_ao).max() < 1e-8
+
+
 def test_relaxed_density_moves_no_charge_and_differs_from_unrelaxed(ch2o_states):
     _s, mol, mf, _e, xs, P = ch2o_states[4.0]
     S = mol.intor("int1e_ovlp")

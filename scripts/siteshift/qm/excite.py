@@ -141,7 +141,8 @@ def excite(elements, coords_ang, charge=0, spin=0, settings: ExciteSettings | No
             t2 = time.perf_counter()
             lowest = min(states, key=lambda s: s["energy_ev"])["index"]
             pick = [st["index"] for st in states if st["band"] or st["index"] == lowest]
-            dens = relaxed_difference_densities(mf, [resp["xs"][i - 1] for i in pick], settings)
+            dens = relaxed_difference_densities(mf, [resp["xs"][i - 1] for i in pick], settings,
+                                                log=log)
             resp.update({f"relaxed_{i}": P for i, P in zip(pick, dens)})
             result["timings_s"]["relaxed_density"] = round(time.perf_counter() - t2, 3)
             log(f"relaxed difference densities in {time.perf_counter() - t2:.1f} s")

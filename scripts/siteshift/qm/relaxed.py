@@ -16,6 +16,12 @@ reaction field, the kernel terms the ε_optical one. The XC third derivative ent
 difference of PySCF's public second-derivative contraction (``nr_rks_fxc``) along the transition
 density.
 
+The coupled-perturbed equations' products, (A + B − Δε) z, are taken in the MO basis from the
+fitted MO tensors where :class:`siteshift.qm.stability.MOHessian` applies (closed-shell GGA-type
+KS with fitted tensors), else from PySCF's AO-basis response (``mf.gen_response``). On heme b
+(19HC, 389 AOs, IEF-PCM) the AO route had not ended after 17 min: each product built Coulomb,
+exchange and PCM surface integrals in the AO basis from densities of rank 2·n_occ.
+
 Conventions follow PySCF's TDA gradient code (amplitudes x/√2 for each spin), so that P here is
 the density whose trace with a one-electron operator gives the energy derivative.
 """
@@ -49,14 +55,15 @@ def xc_kernel_terms(mf, dm0, d_vo, d_oo, step=KXC_STEP):
 
 
 def relaxed_difference_density(mf, x, settings: ExciteSettings | None = None, tol=1e-5,
-                               max_cycle=50, step=KXC_STEP):
+                               max_cycle=50, step=KXC_STEP, route="auto", log=None):
     """Relaxed difference density (AO, symmetric) of one closed-shell singlet TDA state; see
     :func:`relaxed_difference_densities`."""
-    return relaxed_difference_densities(mf, [x], settings, tol, max_cycle, step)[0]
+    return relaxed_difference_densities(mf, [x], settings, tol, max_cycle, step, route,
+                                        log)[0]
 
 
 def relaxed_difference_densities(mf, xs, settings: ExciteSettings | None = None, tol=1e-5,
-                                 max_cycle=50, step=KXC_STEP):
+                                 max_cycle=50, step=KXC_STEP, route="auto", log=None):
     """Relaxed difference densities (AO, symmetric) of closed-shell singlet TDA states.
 
     mf: the converged ground state the response was solved on; xs: the states' amplitudes over
@@ -65,8 +72,15 @@ def relaxed_difference_densities(mf, xs, settings: ExciteSettings | None = None,
     equilibrium). The states' Z-vector equations are solved together (one block Krylov solve,
     one stacked response per iteration). tol: the Krylov residual; measured on the demo
     chromophore (6-31G), tol 1e-4 to 1e-8 gave first-order shifts within 1e-7 meV of each
-    other in 15–20 iterations.
+    other in 15–20 iterations. route: "mo" takes the coupled-perturbed products in the MO
+    basis (:class:`siteshift.qm.stability.MOHessian`), "ao" from PySCF's AO-basis response,
+    "auto" the MO basis where it applies. log: progress (the right-hand side's parts and each
+    Krylov product's time).
     """
+    import time
+    log = log or (lambda s: None)
+    if route not in ("auto", "mo", "ao"):
+        raise ValueError(f"relaxed density route {route!r}: use 'auto', 'mo' or 'ao'")
     mol = mf.mol
     if mol.spin != 0:
         raise EngineError("relaxed difference densities are built for closed shells only")
@@ -94,10 +108,14 @@ def relaxed_difference_densities(mf, xs, settings: ExciteSettings | None = None,
         per_state.append((xp, dmx, T))
         dms += [T, dmx + dmx.T, dmx - dmx.T]
     dms = np.asarray(dms)
+    t0 = time.perf_counter()
     vj, vk = mf.get_jk(mol, dms, hermi=0)
     vk = vk * c_sr
     if omega != 0 and abs(c_lr - c_sr) > 0:
         vk = vk + mf.get_k(mol, dms, hermi=0, omega=omega) * (c_lr - c_sr)
+    log(f"relaxed densities: Coulomb and exchange of {len(dms)} densities "
+        f"{time.perf_counter() - t0:.1f} s")
+    t0 = time.perf_counter()
     wvos = []
     for k, (xp, dmx, T) in enumerate(per_state):
         j = slice(3 * k, 3 * k + 3)
@@ -122,21 +140,60 @@ def relaxed_difference_densities(mf, xs, settings: ExciteSettings | None = None,
         wvo -= 2.0 * xp @ vm[:nocc, :nocc].T
         wvo += 2.0 * vm[nocc:, nocc:].T @ xp
         wvos.append(wvo)
+    log(f"relaxed densities: XC kernel terms of {len(per_state)} states "
+        f"{time.perf_counter() - t0:.1f} s")
 
-    vresp = _ground_response(mf)
+    t0 = time.perf_counter()
+    products = _coupling_products(mf, route, log)
+    count = [0]
 
     def fvind(z):
-        z = z.reshape(-1, nvir, nocc)
-        d = np.asarray([orbv @ (zk * 2.0) @ orbo.T for zk in z])
-        v = vresp(d + d.transpose(0, 2, 1))
-        return np.asarray([orbv.T @ vk_ @ orbo for vk_ in v]).reshape(len(z), -1)
+        t = time.perf_counter()
+        out = products(z.reshape(-1, nvir, nocc))
+        count[0] += 1
+        log(f"Z-vector product {count[0]}: {len(out)} vectors, {time.perf_counter() - t:.1f} s")
+        return out.reshape(len(out), -1)
 
     z, _ = cphf.solve(fvind, e, occ, np.asarray(wvos), max_cycle=max_cycle, tol=tol)
+    log(f"Z-vector: {count[0]} products, {time.perf_counter() - t0:.1f} s")
     out = []
     for (_xp, _dmx, T), zk in zip(per_state, z.reshape(-1, nvir, nocc)):
         zao = orbv @ zk @ orbo.T
         out.append(T + 0.5 * (zao + zao.T))
     return out
+
+
+def _coupling_products(mf, route, log):
+    """z ↦ (A + B − Δε) z over (n, n_vir, n_occ) trial vectors: the ground state's response
+    to the symmetric density 2 C_v z C_oᵀ + transpose (Coulomb, exchange, XC and the
+    continuum's equilibrium reaction field), projected on the virtual–occupied block."""
+    from .dfjk import all_blas_threads
+    from .stability import MOHessian
+    sol = getattr(mf, "with_solvent", None)
+    frozen = sol is not None and getattr(sol, "frozen", False)
+    if route == "mo" or (route == "auto" and MOHessian.applies(mf) and not frozen):
+        if frozen:
+            raise EngineError("relaxed density route 'mo': a frozen reaction field is not "
+                              "supported there; use route='ao'")
+        with all_blas_threads():
+            h = MOHessian(mf, continuum_response=True, log=log)
+
+        def mo_products(z):
+            x = z.transpose(0, 2, 1)
+            with all_blas_threads():
+                out = h.apb(x) - x * h.e_ia
+            return out.transpose(0, 2, 1)
+        return mo_products
+    C = np.asarray(mf.mo_coeff)
+    occ = np.asarray(mf.mo_occ)
+    orbo, orbv = C[:, occ > 0], C[:, occ == 0]
+    vresp = _ground_response(mf)
+
+    def ao_products(z):
+        d = np.asarray([orbv @ (zk * 2.0) @ orbo.T for zk in z])
+        v = vresp(d + d.transpose(0, 2, 1))
+        return np.asarray([orbv.T @ vk_ @ orbo for vk_ in v])
+    return ao_products
 
 
 def _ground_response(mf):
