@@ -368,10 +368,36 @@ def test_pcm_integral_table_equals_pyscf_integrals(monkeypatch):
     assert sol._table() is not None
     assert np.max(np.abs(sol._get_v(d) - pcm.PCM._get_v(sol, d))) < 1e-11
     assert np.max(np.abs(sol._get_vmat(q) - pcm.PCM._get_vmat(sol, q))) < 1e-11
+    # a table that fits only in float32 is kept so (and used in float64): round-off of float32
+    t64 = sol._table()
+    monkeypatch.setattr(sp, "PCM_TABLE_MAX_MB", 0.6 * t64.nbytes / 1e6)
+    monkeypatch.setattr(sp, "PCM_TABLE_ROWS", 100)      # several row blocks
+    sol._t_key = None
+    assert sol._table().dtype == np.float32
+    for ours, ref in ((sol._get_v(d), pcm.PCM._get_v(sol, d)),
+                      (sol._get_vmat(q), pcm.PCM._get_vmat(sol, q))):
+        assert np.max(np.abs(ours - ref)) < 1e-6 * np.max(np.abs(ref))
     monkeypatch.setattr(sp, "PCM_TABLE_MAX_MB", 0.0)
     sol._t_key = None
     assert sol._table() is None
     assert np.max(np.abs(sol._get_v(d) - pcm.PCM._get_v(sol, d))) < 1e-14
+
+
+def test_fast_tda_takes_its_surface_integrals_from_the_scfs_table(ch2o_exact, monkeypatch):
+    # Reference: PySCF's int3c2e over the surface points (df.incore.aux_e2), transformed to the
+    # MO basis, the fast TDA's path when the SCF kept no table (no room for it)
+    import siteshift.qm.pcm as sp
+    mf, s = ch2o_exact
+    assert mf.with_solvent._table() is not None
+    with_table = FastTDA(mf, s)
+    monkeypatch.setattr(sp, "PCM_TABLE_MAX_MB", 0.0)
+    mf.with_solvent._t_key = None
+    try:
+        fresh = FastTDA(mf, s)
+    finally:
+        mf.with_solvent._t_key = None     # the module's fixture gets its table back
+    assert fresh.V is not None and np.abs(fresh.V).max() > 0.01
+    assert np.abs(with_table.V - fresh.V).max() < 1e-12
 
 
 def test_xc_blocks_do_not_shrink_when_the_memory_budget_is_spent():

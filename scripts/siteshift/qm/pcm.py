@@ -30,9 +30,14 @@ def response_solvent(mf, settings: ExciteSettings):
 #: :class:`FactoredPCM` keeps between calls (also at most a quarter of the job's max_memory).
 #: PySCF computes the table twice per SCF cycle and per coupled-perturbed iteration; measured
 #: on the demo chromophore (20 atoms, 6-31G, IEF-PCM): 63 such passes took 42 of the 148 s
-#: of its excited-state job with relaxed densities. A pigment whose table does not fit
-#: (a bacteriochlorophyll at def2-SVP: tens of GB) keeps PySCF's blocked recomputation.
+#: of its excited-state job with relaxed densities. A table too large in float64 is kept in
+#: float32 (and used in float64, block by block) when that fits: heme b at 6-31G (19HC: 389
+#: AOs, 1.8 GB in float64) spent ~60 % of each continuum SCF cycle recomputing it. A pigment
+#: whose table fits neither way (a bacteriochlorophyll at def2-SVP: tens of GB) keeps PySCF's
+#: blocked recomputation.
 PCM_TABLE_MAX_MB = 2000
+#: AO-pair rows of the table converted to float64 at a time (float32 storage)
+PCM_TABLE_ROWS = 4096
 
 
 class FactoredPCM(pcm.PCM):
@@ -40,22 +45,43 @@ class FactoredPCM(pcm.PCM):
     (μν|g) table kept in memory when small enough (``PCM_TABLE_MAX_MB``)."""
 
     def _table(self):
-        """(μν|g) over AO pairs μ ≥ ν (packed) × surface points, or None when too large."""
+        """(μν|g) over AO pairs μ ≥ ν (packed) × surface points (float64, or float32 when only
+        that fits the budget), or None when too large."""
         coords = self.surface["grid_coords"]
         key = (coords.shape, float(np.sum(coords)), float(np.sum(self.surface["charge_exp"])))
         if getattr(self, "_t_key", None) == key:
             return self._t
         mol = self.mol
         npair = mol.nao * (mol.nao + 1) // 2
-        mb = npair * len(coords) * 8 / 1e6
+        budget = min(PCM_TABLE_MAX_MB, self.max_memory / 4)
         self._t_key, self._t = key, None
-        if mb <= min(PCM_TABLE_MAX_MB, self.max_memory / 4):
-            from pyscf import df
-            fake = gto.fakemol_for_charges(coords, expnt=self.surface["charge_exp"] ** 2)
+        dtype = next((np.dtype(d) for d in (np.float64, np.float32)
+                      if npair * len(coords) * np.dtype(d).itemsize / 1e6 <= budget), None)
+        if dtype is None:
+            return None
+        from pyscf import df, lib
+        expn = self.surface["charge_exp"] ** 2
+        intor = mol._add_suffix("int3c2e")
+        t = np.empty((npair, len(coords)), dtype)
+        # point blocks of ~100 MB in float64 before they are stored
+        for p0, p1 in lib.prange(0, len(coords), max(1, int(1e8 / 8 / npair))):
+            fake = gto.fakemol_for_charges(coords[p0:p1], expnt=expn[p0:p1])
             fake.cart = mol.cart
-            self._t = df.incore.aux_e2(mol, fake, intor=mol._add_suffix("int3c2e"),
-                                       aosym="s2ij")
-        return self._t
+            t[:, p0:p1] = df.incore.aux_e2(mol, fake, intor=intor, aosym="s2ij")
+        self._t = t
+        return t
+
+    @staticmethod
+    def _row_blocks(t):
+        """(r0, r1, float64 block) of the table's AO-pair rows (no copy in float64)."""
+        if t.dtype == np.float64:
+            yield 0, len(t), t
+            return
+        buf = np.empty((min(PCM_TABLE_ROWS, len(t)), t.shape[1]))
+        for r0 in range(0, len(t), PCM_TABLE_ROWS):
+            r1 = min(len(t), r0 + PCM_TABLE_ROWS)
+            np.copyto(buf[:r1 - r0], t[r0:r1])
+            yield r0, r1, buf[:r1 - r0]
 
     def _get_v(self, dms):
         t = self._table()
@@ -66,8 +92,11 @@ class FactoredPCM(pcm.PCM):
         packed = lib.pack_tril(dms + dms.transpose(0, 2, 1))
         idx = np.arange(self.mol.nao)
         packed[:, idx * (idx + 1) // 2 + idx] *= 0.5      # the diagonal counted once
+        out = np.zeros((len(packed), t.shape[1]))
         with all_blas_threads():
-            return packed @ t
+            for r0, r1, blk in self._row_blocks(t):
+                out += packed[:, r0:r1] @ blk
+        return out
 
     def _get_vmat(self, q):
         t = self._table()
@@ -75,8 +104,11 @@ class FactoredPCM(pcm.PCM):
             return super()._get_vmat(q)
         from pyscf import lib
         q = np.asarray(q).reshape(-1, t.shape[1])
+        out = np.empty((len(q), len(t)))
         with all_blas_threads():
-            return -lib.unpack_tril(q @ t.T)
+            for r0, r1, blk in self._row_blocks(t):
+                out[:, r0:r1] = q @ blk.T
+        return -lib.unpack_tril(out)
 
     def _lu(self):
         """The LU factors of K, refreshed whenever PySCF replaces K."""
