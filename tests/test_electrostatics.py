@@ -309,6 +309,30 @@ def test_residue_keys():
     assert residue_totals(df)["A:GLU6"] == pytest.approx(-1.0)
 
 
+def test_esp_cache_key_holds_the_ground_state_job_and_versions(monkeypatch, tmp_path):
+    # the ESP charges are reused only for the same model, ground-state settings, code and PySCF
+    # versions (issue: "the QM cache key includes ... the code and PySCF versions"); settings of
+    # the excitations alone do not make a new gas-phase SCF
+    import dataclasses
+
+    import pyscf
+    from siteshift.study.electrostatics import _esp_path
+    rec = {"ccd_code": "XYZ", "elements": CH2O[0], "coords_A": CH2O[1], "charge": 0,
+           "multiplicity": 1, "band_axes": {"Qy": ["C", "O"]}}
+    s = ExciteSettings(basis="6-31g", eps_static=1.0, eps_optical=1.0)
+    base = _esp_path(rec, s, tmp_path)
+    assert base.name.startswith("esp_") and base == _esp_path(rec, s, tmp_path)
+    assert _esp_path(rec, dataclasses.replace(s, nstates=12), tmp_path) == base
+    assert _esp_path({**rec, "band_axes": None}, s, tmp_path) == base
+    changed = [_esp_path(rec, dataclasses.replace(s, basis="def2-svp"), tmp_path),
+               _esp_path(rec, dataclasses.replace(s, grid_level=s.grid_level - 1), tmp_path),
+               _esp_path({**rec, "multiplicity": 3}, s, tmp_path),
+               _esp_path({**rec, "charge": 1}, s, tmp_path)]
+    monkeypatch.setattr(pyscf, "__version__", "0.0.1")
+    changed.append(_esp_path(rec, s, tmp_path))
+    assert len({base, *changed}) == 6
+
+
 def test_cli_electrostatics_names_the_mutated_residue(root, tmp_path, capsys):
     # the demo mutant puts a glutamate into chain A's apolar pocket: the first-order survey
     # (one cached difference density per pigment type) names it as the top contributor, and a

@@ -253,9 +253,11 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     for pid, (p, m) in models.items():
         if p.code not in refs:
             refs[p.code] = (pid, model_record(m, library[p.code], structure))
+    esp_settings, esp_paths = _esp_settings(qm), {}
     for code, (pid, rec) in refs.items():
         t = time.perf_counter()
-        fits[code] = _cached_esp(rec, qm, cache)
+        esp_paths[code] = _esp_path(rec, esp_settings, cache)
+        fits[code] = _cached_esp(rec, esp_settings, esp_paths[code])
         timings[f"esp_{code}_s"] = round(time.perf_counter() - t, 2)
     t = time.perf_counter()
     fit_dicts = {c: {"names": refs[c][1]["names"], "charges": f["charges"]}
@@ -275,7 +277,7 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
         # the continuum SCF starts from the same model's gas-phase ESP density (same basis)
         res, h, arrays = cached_excite(
             rec, s, cache, relaxed=True, label=f"{code} (reference copy {pid})",
-            start=site_start(rec, s, density=_esp_path(rec, qm, cache).with_suffix(".dm.npy"),
+            start=site_start(rec, s, density=esp_paths[code].with_suffix(".dm.npy"),
                              source=f"the gas-phase ESP-charge SCF of {pid}"))
         settings_by_code[code] = s
         dens[code] = (rec, res, arrays)
@@ -321,26 +323,34 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
             "timings_s": timings}
 
 
-def _esp_path(rec, qm, cache):
-    """Where the ESP charges of one pigment type's QM model are kept: a hash of the model and
-    the QM settings (the ground-state density beside it, ``.dm.npy``)."""
+#: settings that change the excitations but not the ground state: left out of the ESP key
+RESPONSE_ONLY_SETTINGS = ("nstates", "tda", "solver", "response_tol", "response_grid_level",
+                          "occ_window_ev", "vir_window_ev", "equilibrium", "eps_optical")
+
+
+def _esp_settings(qm):
+    """The gas-phase settings of the ESP-charge SCF (ε 1, the study's preset and ω)."""
     from .config import qm_settings
-    s = qm_settings(qm, 1.0, 1.0, qm.get("omega"))
-    key = {"esp": rec["ccd_code"], "elements": rec["elements"],
-           "coords_A": np.round(np.asarray(rec["coords_A"]), 4).tolist(),
-           "charge": rec["charge"], "settings": s.functional.as_dict(), "basis": s.basis}
-    return Path(cache) / f"esp_{io.stable_hash(key)}.json"
+    return qm_settings(qm, 1.0, 1.0, qm.get("omega"))
 
 
-def _cached_esp(rec, qm, cache):
-    """ESP charges of one pigment type's QM model, computed once and kept in the cache
-    (:func:`_esp_path`); the SCF's density is kept too, as the start of the type's
-    difference-density SCF on the same model."""
+def _esp_path(rec, settings, cache):
+    """Where the ESP charges of one pigment type's QM model are kept: a hash of the QM job's
+    key (:func:`siteshift.study.stages.qm_key`: model, charge, spin, ground-state settings, code
+    and PySCF versions), the ground-state density beside it (``.dm.npy``)."""
+    from .stages import qm_key
+    key = qm_key({**rec, "band_axes": None}, settings)
+    key["settings"] = {k: v for k, v in key["settings"].items()
+                       if k not in RESPONSE_ONLY_SETTINGS}
+    return Path(cache) / f"esp_{io.stable_hash({'esp': rec['ccd_code'], **key})}.json"
+
+
+def _cached_esp(rec, s, path):
+    """ESP charges of one pigment type's QM model (gas-phase settings s), computed once and
+    kept at path (:func:`_esp_path`); the SCF's density is kept too, as the start of the
+    type's difference-density SCF on the same model."""
     from ..qm.esp import esp_charges
     from ..qm.scf import make_scf, run_scf
-    from .config import qm_settings
-    s = qm_settings(qm, 1.0, 1.0, qm.get("omega"))
-    path = _esp_path(rec, qm, cache)
     if path.exists():
         log.info("%s: ESP charges reused from %s", rec["ccd_code"], path)
         return io.read_json(path)
