@@ -183,7 +183,8 @@ def cmd_electrostatics(args):
         setup_logging()
     qm = {"preset": args.preset, "omega": args.omega}
     el = {"ph": args.ph, "screening": args.screening, "smearing_A": args.smearing,
-          "unknown_residues": args.unknown}
+          "unknown_residues": args.unknown, "survey_exact_within_A": (args.exact_within if args.exact_within >= 0
+                                                   else None)}
     res = survey_structure(args.structure, _library(args), qm, pigment=args.pigment,
                            eps_static=args.eps_static, eps_optical=args.eps_optical, el=el,
                            cache_dir=args.cache, altloc=args.altloc, top=args.top,
@@ -398,6 +399,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help=f"pH of the protonation states (default {el['ph']})")
     p.add_argument("--smearing", type=float, default=el["smearing_A"],
                    help=f"Gaussian width of the charges in Å (default {el['smearing_A']})")
+    p.add_argument("--exact-within", type=float, default=el["survey_exact_within_A"],
+                   help="charges this close (Å) to a QM atom get exact integrals, farther ones "
+                        "the fitted density's potential; a negative value keeps all exact "
+                        f"(default {el['survey_exact_within_A']})")
     p.add_argument("--unknown", choices=["error", "neutral"], default=el["unknown_residues"],
                    help="a residue without a charge source: stop, or leave it uncharged")
     p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")

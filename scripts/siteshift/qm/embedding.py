@@ -215,6 +215,147 @@ def density_potential(mol, dm, coords_A, widths_A=None) -> np.ndarray:
     return out
 
 
-def first_order_shifts(mol, ddm, pc: PointCharges) -> np.ndarray:
-    """ΔE_J (Hartree) of the excitation for every (scaled) charge: q_J φ_Δ(R_J)."""
+#: JK-fitting basis of :class:`DensityPotential`: Weigend's universal JK fit, defined for
+#: H–Rn (Weigend, JCC 29, 167 (2008))
+POTENTIAL_AUXBASIS = "def2-universal-jkfit"
+
+
+class DensityPotential:
+    """φ(R) of one electron density at many points, for a whole structure's charges.
+
+    Points within ``exact_within_A`` of a QM atom get the exact three-centre integrals
+    (:func:`density_potential`); farther ones the potential of the density fitted in an
+    auxiliary basis with the Coulomb metric, c = J⁻¹ (P|ρ), φ(R) = −Σ_P c_P (P|R) (Whitten,
+    JCP 58, 4496 (1973); Dunlap, Connolly & Sabin, JCP 71, 3396 (1979)): two-centre integrals
+    per point instead of n_AO² three-centre ones. The fit is constrained (Lagrange multipliers)
+    to keep the density's Cartesian moments up to ``MOMENT_ORDER`` exactly, so its far field
+    is the true one up to higher multipoles: measured on the relaxed n→π* difference density
+    of formaldehyde/6-31G, the largest relative error over points at 12 / 20 Å from the
+    centroid was 2e-3 / 7e-4 unconstrained-to-quadrupole, 4.2e-4 / 1.4e-4 to order 3 and
+    7e-5 / 4e-5 to order 4. exact_within_A None (or inf) keeps every point exact.
+    shared: a dict kept between densities of the same molecule (auxiliary basis, metric and
+    moments are computed once).
+
+    Why: the survey of 19HC (18 hemes, 389 AOs, 12 379 charges per copy) spent its
+    attribution in three-centre integrals, one n_AO² block per charge and copy."""
+
+    #: Cartesian moments x^i y^j z^k (i + j + k ≤ MOMENT_ORDER) the fit keeps
+    MOMENT_ORDER = 4
+
+    def __init__(self, mol, dm, exact_within_A=None, auxbasis=POTENTIAL_AUXBASIS, shared=None):
+        self.mol, self.dm = mol, np.asarray(dm)
+        self.exact_within_A = (None if exact_within_A is None or not np.isfinite(exact_within_A)
+                               else float(exact_within_A))
+        self.auxbasis = auxbasis
+        self.shared = {} if shared is None else shared
+        self._coef = None
+        self.n_exact = self.n_fitted = 0
+
+    def _context(self):
+        """(aux, metric eigenpairs kept, aux moments M, powers, origin), once per molecule."""
+        sh = self.shared
+        if "aux" not in sh:
+            import scipy.linalg
+            aux = df.addons.make_auxmol(self.mol, self.auxbasis)
+            w, v = scipy.linalg.eigh(aux.intor("int2c2e"))
+            keep = w > 1e-10 * w.max()      # drop the metric's near-null space
+            sh.update(aux=aux, w=w[keep], v=v[:, keep])
+            sh.update(zip(("M", "powers", "origin"), self._aux_moments(aux)))
+        return sh
+
+    def _fit(self):
+        if self._coef is None:
+            mol = self.mol
+            sh = self._context()
+            aux, w, v = sh["aux"], sh["w"], sh["v"]
+            dm = self.dm
+            tril = lib.pack_tril(dm + dm.T - np.diag(np.diag(dm)))
+            rhs = np.empty(aux.nao)
+            loc = aux.ao_loc_nr()
+            step = max(1, int(2e8 / 8 / max(1, len(tril)) / 10))   # ~200 MB of (μν|P)
+            for b0, b1 in lib.prange(0, aux.nbas, step):
+                j3c = df.incore.aux_e2(mol, aux, aosym="s2ij", shls_slice=(
+                    0, mol.nbas, 0, mol.nbas, b0, b1))
+                rhs[loc[b0]:loc[b1]] = tril @ j3c
+
+            def jinv(b):
+                return v @ ((v.T @ b) / w[:, None])
+            M = sh["M"]
+            m = self._density_moments(sh["powers"], sh["origin"])
+            jb, jm = jinv(rhs[:, None])[:, 0], jinv(M)
+            lam = np.linalg.solve(M.T @ jm, M.T @ jb - m)
+            self._coef = jb - jm @ lam
+        return self.shared["aux"], self._coef
+
+    def _aux_moments(self, aux):
+        """(M, powers, origin): the Cartesian moments x^i y^j z^k, i + j + k ≤ MOMENT_ORDER,
+        about the nuclear centroid, of each auxiliary function (rows of M; level-3 DFT grid)."""
+        from itertools import product
+
+        from pyscf import dft
+        mol = self.mol
+        powers = [p for n in range(self.MOMENT_ORDER + 1)
+                  for p in product(range(n + 1), repeat=3) if sum(p) == n]
+        origin = mol.atom_coords().mean(axis=0)
+        grids = dft.gen_grid.Grids(mol)
+        grids.level = 3
+        grids.build(with_non0tab=False)
+        M = np.zeros((aux.nao, len(powers)))
+        for g0, g1 in lib.prange(0, len(grids.weights), 20000):
+            r = grids.coords[g0:g1] - origin
+            poly = np.stack([np.prod(r ** np.array(p), axis=1) for p in powers], axis=1)
+            M += aux.eval_gto("GTOval_cart" if aux.cart else "GTOval_sph",
+                              grids.coords[g0:g1]).T @ (poly * grids.weights[g0:g1, None])
+        return M, powers, origin
+
+    def _density_moments(self, powers, origin):
+        """The same moments of the electron density (exact AO integrals)."""
+        mol, dm = self.mol, self.dm
+        ints = {0: mol.intor_symmetric("int1e_ovlp")[None]}
+        names = {1: "int1e_r", 2: "int1e_rr", 3: "int1e_rrr", 4: "int1e_rrrr"}
+        with mol.with_common_orig(origin):
+            for n in range(1, self.MOMENT_ORDER + 1):
+                ints[n] = mol.intor(names[n], comp=3 ** n)
+        m = []
+        for p in powers:
+            axes = [a for a in range(3) for _ in range(p[a])]     # e.g. (2,0,1) -> x x z
+            comp = sum(a * 3 ** (len(axes) - 1 - k) for k, a in enumerate(axes))
+            m.append(np.einsum("ij,ji->", dm, ints[len(axes)][comp]))
+        return np.array(m)
+
+    def __call__(self, coords_A, widths_A=None) -> np.ndarray:
+        """φ (Hartree/e) at the points (Å), optional Gaussian widths (Å) as in PointCharges."""
+        coords_A = np.asarray(coords_A, float).reshape(-1, 3)
+        pc = PointCharges(coords_A, np.zeros(len(coords_A)), widths_A)
+        if self.exact_within_A is None:
+            near = np.ones(len(pc), bool)
+        else:
+            atoms = self.mol.atom_coords() * nist.BOHR
+            near = np.zeros(len(pc), bool)
+            for i0, i1 in lib.prange(0, len(pc), 4096):
+                d = np.linalg.norm(coords_A[i0:i1, None, :] - atoms[None], axis=-1)
+                near[i0:i1] = d.min(axis=1) < self.exact_within_A
+        out = np.empty(len(pc))
+        if near.any():
+            w = None if pc.widths_A is None else pc.widths_A[near]
+            out[near] = density_potential(self.mol, self.dm, coords_A[near], w)
+        far = ~near
+        if far.any():
+            aux, c = self._fit()
+            zetas = pc.zetas()[far]
+            pts = coords_A[far] / nist.BOHR
+            idx = np.nonzero(far)[0]
+            for i0, i1 in lib.prange(0, len(idx), 20000):
+                fake = gto.fakemol_for_charges(pts[i0:i1], expnt=zetas[i0:i1])
+                out[idx[i0:i1]] = -(c @ gto.mole.intor_cross("int2c2e", aux, fake))
+        self.n_exact += int(near.sum())
+        self.n_fitted += int(far.sum())
+        return out
+
+
+def first_order_shifts(mol, ddm, pc: PointCharges, potential=None) -> np.ndarray:
+    """ΔE_J (Hartree) of the excitation for every (scaled) charge: q_J φ_Δ(R_J).
+    potential: a :class:`DensityPotential` of ddm (fitted far field), else exact integrals."""
+    if potential is not None:
+        return pc.scaled * potential(pc.coords_A, pc.widths_A)
     return pc.scaled * density_potential(mol, ddm, pc.coords_A, pc.widths_A)

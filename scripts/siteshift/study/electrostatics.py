@@ -35,7 +35,7 @@ from ..base.defaults import default, fill
 from ..base.units import EV2CM1, HARTREE2EV
 from ..environment.charges import (ChargeSettings, assign_charges, residue_totals,
                                    site_charges)
-from ..qm.embedding import PointCharges, first_order_shifts
+from ..qm.embedding import DensityPotential, PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
 from .stages import cached_excite, density_path, site_settings, site_start, study_omega
 
@@ -122,9 +122,11 @@ def site_point_charges(charges: pd.DataFrame, rec: dict, el: dict, dielectric: d
     return pc, notes
 
 
-def residue_contributions(mol, P, pc: PointCharges, coords_model_A) -> pd.DataFrame:
-    """First-order shift (meV, cm⁻¹) of one state by each residue, sorted by magnitude."""
-    de = first_order_shifts(mol, P, pc) * HARTREE2EV * 1000.0
+def residue_contributions(mol, P, pc: PointCharges, coords_model_A,
+                          potential=None) -> pd.DataFrame:
+    """First-order shift (meV, cm⁻¹) of one state by each residue, sorted by magnitude.
+    potential: P's :class:`siteshift.qm.embedding.DensityPotential` (fitted far field)."""
+    de = first_order_shifts(mol, P, pc, potential) * HARTREE2EV * 1000.0
     X = np.asarray(coords_model_A, float)
     dmin = np.min(np.linalg.norm(pc.coords_A[:, None, :] - X[None], axis=-1), axis=1)
     df = pd.DataFrame({"residue": pc.labels, "shift_mev": de, "charge_e": pc.charges,
@@ -284,6 +286,22 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
         timings[f"density_{code}_s"] = round(time.perf_counter() - t, 2)
     t = time.perf_counter()
     out = []
+    # one potential per pigment type and band: its density's fit is shared by every copy
+    exact_within = el.get("survey_exact_within_A")
+    potentials, mols = {}, {}
+    for code, (rec_ref, res_ref, arrays) in dens.items():
+        mols[code] = mol = build_molecule(
+            rec_ref["elements"], rec_ref["coords_A"], rec_ref["charge"],
+            rec_ref["multiplicity"] - 1, settings_by_code[code].basis)
+        shared = {}     # the fitting basis, metric and its moments: once per type
+        for band, st in _band_states(res_ref).items():
+            key = f"relaxed_{st['index']}"
+            if key in arrays:
+                potentials[code, band] = DensityPotential(mol, arrays[key], exact_within,
+                                                          shared=shared)
+    done = 0
+    n_copies = sum(1 for pid, (p, _m) in models.items()
+                   if not (pigment and pid != pigment) and p.code in dens)
     for pid, (p, m) in models.items():
         if (pigment and pid != pigment) or p.code not in dens:
             continue
@@ -300,25 +318,31 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
         w = float(el["smearing_A"])
         pc = PointCharges(coords @ R + tr, q, np.full(len(q), w) if w > 0 else None,
                           scale=1.0 / eps_scr, labels=keys)
-        mol = build_molecule(rec_ref["elements"], rec_ref["coords_A"], rec_ref["charge"],
-                             rec_ref["multiplicity"] - 1, settings_by_code[p.code].basis)
+        mol = mols[p.code]
         bands = {}
         for band, st in _band_states(res_ref).items():
             key = f"relaxed_{st['index']}"
             if key not in arrays:
                 continue
-            contrib = residue_contributions(mol, arrays[key], pc, rec_ref["coords_A"])
+            contrib = residue_contributions(mol, arrays[key], pc, rec_ref["coords_A"],
+                                            potential=potentials[p.code, band])
             bands[band] = {"state": st["index"], "energy_reference_ev": st["energy_ev"],
                            "shift_first_order_mev": float(contrib.shift_mev.sum()),
                            "residues": contrib.head(top).to_dict(orient="records")}
         out.append({"pigment_id": pid, "ccd_code": p.code, "reference_copy": refs[p.code][0],
                     "superposition_rmsd_A": rmsd, "n_charges": len(pc),
                     "total_charge_e": float(q.sum()), "notes": notes, "bands": bands})
+        done += 1
+        log.info("attribution: %s (%d of %d), %d charges, %.1f s so far", pid, done, n_copies,
+                 len(pc), time.perf_counter() - t)
     timings["attribution_s"] = round(time.perf_counter() - t, 2)
     timings["total_s"] = round(time.perf_counter() - t0, 2)
     return {"structure": str(structure), "eps_static": eps_s, "eps_optical": eps_o,
             "screening": el["screening"], "charge_scale": 1.0 / screening_eps(el, diel),
             "n_atoms_charged": int(len(charges)), "total_charge_e": float(charges.charge_e.sum()),
+            "exact_within_A": exact_within,
+            "charges_exact": sum(v.n_exact for v in potentials.values()),
+            "charges_fitted": sum(v.n_fitted for v in potentials.values()),
             "protonation": report.to_dict(orient="records"), "pigments": out,
             "timings_s": timings}
 
