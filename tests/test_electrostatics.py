@@ -334,6 +334,30 @@ def test_site_charges_leave_out_the_site_and_keep_ligand_residue_totals(hc19_pat
                                         & charges.chain.eq("A")) - 2 * 11
 
 
+def test_survey_refuses_open_shell_models_and_flags_bonded_charges(hc19_path, tmp_path, capsys):
+    # 19HC's hemes are bis-His c-type hemes: with their axial ligands in the QM model they are
+    # Fe(III) doublets, for which the survey's (closed-shell) relaxed densities do not exist;
+    # the error names the type and both ways out, before any QM is run
+    from siteshift.cli import main
+    from siteshift.study.electrostatics import _contacts
+    assert main(["electrostatics", str(hc19_path), "--preset", "demo",
+                 "--cache", str(tmp_path)]) != 0
+    err = capsys.readouterr().err
+    assert "HEM" in err and "multiplicity 2" in err and "--no-axial-ligands" in err
+    assert not list(tmp_path.iterdir())
+    # without them, the coordinating His sit at bonding distance of the model's Fe: flagged
+    # (heavy atoms within 2.6 Å), hydrogens' ordinary contacts are not
+    rec = {"elements": ["FE", "N", "H"], "coords_A": [[0, 0, 0], [2.0, 0, 0], [0, 0, 1.0]]}
+    df = pd.DataFrame({"chain": ["A", "A", "A", "B"], "resname": ["HIS", "HIS", "ALA", "GLY"],
+                       "resid": [37, 37, 5, 2], "icode": ["", "", "", ""],
+                       "element": ["N", "C", "H", "C"],
+                       "x_A": [0.0, 0.0, 0.0, 5.0], "y_A": [2.0, 3.0, 0.0, 0.0],
+                       "z_A": [0.0, 0.0, 2.9, 0.0]})
+    embedded = {"A:HIS37", "A:ALA5", "B:GLY2"}
+    assert _contacts(df, rec, embedded) == ["A:HIS37"]
+    assert _contacts(df, rec, {"A:ALA5"}) == []
+
+
 def test_residue_keys():
     assert residue_key("A", "GLU", 6) == "A:GLU6" and residue_key("B", "HC4", 101, "A") == \
         "B:HC4101A"

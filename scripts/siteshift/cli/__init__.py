@@ -406,8 +406,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--unknown", choices=["error", "neutral"], default=el["unknown_residues"],
                    help="a residue without a charge source: stop, or leave it uncharged")
     p.add_argument("--altloc", default=altloc, help=f"altloc policy (default {altloc})")
-    p.add_argument("--axial-ligands", action="store_true",
-                   help="add the metal-coordinating side chains to each QM model")
+    axial = default("extract.axial_ligands")
+    p.add_argument("--axial-ligands", action=argparse.BooleanOptionalAction, default=axial,
+                   help="add the metal-coordinating side chains to each QM model (default "
+                        f"{'on' if axial else 'off'}, as the workflow's extract.axial_ligands; "
+                        "without them their charges sit next to the metal, flagged)")
     p.add_argument("--top", type=int, default=el["top_residues"],
                    help=f"residues listed per pigment (default {el['top_residues']})")
     p.add_argument("--cache", default="siteshift_cache",

@@ -33,10 +33,11 @@ import pandas as pd
 from ..base import io
 from ..base.defaults import default, fill
 from ..base.units import EV2CM1, HARTREE2EV
-from ..environment.charges import (ChargeSettings, assign_charges, residue_totals,
-                                   site_charges)
+from ..environment.charges import (ChargeSettings, assign_charges, residue_key,
+                                   residue_totals, site_charges)
 from ..qm.embedding import DensityPotential, PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
+from ..qm.settings import EngineError
 from .stages import cached_excite, density_path, site_settings, site_start, study_omega
 
 log = logging.getLogger("siteshift")
@@ -208,6 +209,27 @@ def embedded_stage(model_json, environment_json, charges_tsv, out_json, qm: dict
     return out
 
 
+#: a residue with a heavy atom this close (Å) to a heavy atom of the QM model is flagged in
+#: the survey: bonding distance (the metal-donor distance of
+#: :func:`siteshift.structures.ligands.metal_donors`; covalent links are shorter)
+CONTACT_A = 2.6
+
+
+def _contacts(charges: pd.DataFrame, rec: dict, embedded: set) -> list:
+    """Residue keys (among those embedded) with a heavy atom within CONTACT_A of a heavy
+    atom of the QM model."""
+    heavy = charges[charges.element.astype(str).str.upper() != "H"]
+    X = np.asarray(rec["coords_A"], float)[[e != "H" for e in rec["elements"]]]
+    P = heavy[["x_A", "y_A", "z_A"]].to_numpy(float)
+    d = np.full(len(P), np.inf)
+    for i0 in range(0, len(P), 4096):
+        d[i0:i0 + 4096] = np.linalg.norm(P[i0:i0 + 4096, None] - X[None], axis=-1).min(axis=1)
+    near = heavy[d < CONTACT_A]
+    keys = {residue_key(c, n, i, k) for c, n, i, k in
+            zip(near.chain, near.resname, near.resid, near.icode)}
+    return sorted(keys & embedded)
+
+
 def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None,
                      eps_optical=None, el=None, cache_dir="siteshift_cache", altloc=None,
                      top=10, axial_ligands=False):
@@ -255,6 +277,17 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     for pid, (p, m) in models.items():
         if p.code not in refs:
             refs[p.code] = (pid, model_record(m, library[p.code], structure))
+    for code, (pid, rec) in refs.items():
+        if rec["multiplicity"] != 1 and (not pigment or models[pigment][0].code == code):
+            raise EngineError(
+                f"{structure}: pigment type {code} (reference copy {pid}) has an open-shell QM "
+                f"model (charge {rec['charge']:+d}, multiplicity {rec['multiplicity']}"
+                f"{', set by its axial ligands' if axial_ligands else ''}); the "
+                "survey's relaxed difference densities are closed-shell only. Give the type a "
+                "closed-shell state in a pigment library (--library FILE: ligation_states or "
+                "charge/multiplicity, e.g. Fe(II) low spin: charge 0, multiplicity 1), or "
+                "leave the axial ligands out of the QM model (--no-axial-ligands; their charges "
+                "then sit next to the metal and are flagged)")
     esp_settings, esp_paths = _esp_settings(qm), {}
     for code, (pid, rec) in refs.items():
         t = time.perf_counter()
@@ -332,6 +365,16 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
         out.append({"pigment_id": pid, "ccd_code": p.code, "reference_copy": refs[p.code][0],
                     "superposition_rmsd_A": rmsd, "n_charges": len(pc),
                     "total_charge_e": float(q.sum()), "notes": notes, "bands": bands})
+        # a point charge at bonding distance (e.g. a metal's donor atom left out of the QM
+        # model) has a first-order contribution that is not meaningful: say so
+        close = _contacts(charges, rec, set(keys))
+        if close:
+            out[-1]["warnings"] = [
+                f"{', '.join(close)}: charges within {CONTACT_A} Å of the QM model (bonding "
+                "distance); their first-order contributions are not reliable" +
+                ("; add the metal's ligands to the QM model (--axial-ligands)"
+                 if not axial_ligands else "")]
+            log.warning("%s: %s", pid, out[-1]["warnings"][0])
         done += 1
         log.info("attribution: %s (%d of %d), %d charges, %.1f s so far", pid, done, n_copies,
                  len(pc), time.perf_counter() - t)
