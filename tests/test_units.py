@@ -47,6 +47,19 @@ def test_dark_state_below_the_bright_one_does_not_take_qy():
     assert [s["band"] for s in reversed(again)] == [None, "Qy", "Qx", None, None]
 
 
+def test_states_at_or_below_zero_mark_the_reference_as_not_the_ground_state():
+    # an excitation energy <= 0 means a lower state of the same spin exists (a negative
+    # eigenvalue of the TDA matrix; common practice): measured on 19HC's heme modelled as a
+    # four-coordinate Fe(II) singlet, TDA states at -0.187 and -0.101 eV
+    coords = np.array([[0, 0, 0], [0, 4.0, 0], [0, 0, 0], [4.0, 0, 0]], float)
+    states = [dict(_state(e, f, d), index=k + 1) for k, (e, f, d) in enumerate(
+        [(-0.187, 0.0, [0, 0, 0.1]), (-0.101, 0.0, [0, 0.1, 0]), (1.6, 0.3, [0.2, 6.0, 0.1])])]
+    w = assign_bands(states, coords, {"Qy": (0, 1)})
+    assert w[0].startswith("reference: state(s) 1, 2") and "-0.187" in w[0]
+    assert states[2]["band"] == "Qy"
+    assert not any(x.startswith("reference") for x in assign_bands(states[2:], coords))
+
+
 def test_band_naming_warns_when_nstates_is_too_small():
     coords = np.array([[0, 0, 0], [0, 4.0, 0], [0, 0, 0], [4.0, 0, 0]], float)
     axes = {"Qy": (0, 1), "Qx": (2, 3)}

@@ -201,6 +201,14 @@ def cmd_electrostatics(args):
             mev = b["shift_first_order_mev"]
             print(f"{p['pigment_id']:<14s} {band:<7s} {mev:>10.2f} {mev * EV2CM1 / 1000:>8.1f}"
                   f"  {top}")
+    for code, ws in res.get("reference_warnings", {}).items():
+        for w in ws:
+            print(f"warning: {code}: {w}")
+    flagged = [p["pigment_id"] for p in res["pigments"] if p.get("warnings")]
+    if flagged:
+        print(f"warning: {len(flagged)} pigment(s) with charges at bonding distance of the QM "
+              f"model ({', '.join(flagged[:4])}{', ...' if len(flagged) > 4 else ''}): see "
+              "their 'warnings' in the JSON")
     t = res["timings_s"]
     print(f"time: {t['total_s']:.1f} s (" + ", ".join(f"{k} {v}" for k, v in t.items()
                                                        if k != "total_s") + ")")

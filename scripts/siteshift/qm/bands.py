@@ -64,6 +64,24 @@ def _top_warning(name, s, ordered):
 
 
 def assign_bands(states, coords, band_axes=None, bright_threshold=0.01, scheme=None):
+    """Set state["band"] in place and return a list of warnings (first, when a state has a
+    zero or negative excitation energy: the reference is then not the lowest state of its
+    spin, and nothing computed from it is meaningful); see :func:`_assign_bands`."""
+    warnings = _assign_bands(states, coords, band_axes, bright_threshold, scheme)
+    low = [s for s in sorted(states, key=lambda s: s["energy_ev"]) if s["energy_ev"] <= 0.0]
+    if low:
+        which = ", ".join(str(s["index"]) for s in low)
+        values = ", ".join(f"{s['energy_ev']:+.3f}" for s in low)
+        warnings.insert(0, (
+            f"reference: state(s) {which} have excitation energies {values} eV (<= 0): "
+            "the ground state computed is not the lowest state of its spin (negative "
+            "eigenvalues of the TDA matrix), so these energies, band names and shifts are not "
+            "meaningful; check the pigment's charge and spin state (for a metal: its "
+            "ligation, ligation_states or pigment_overrides)"))
+    return warnings
+
+
+def _assign_bands(states, coords, band_axes=None, bright_threshold=0.01, scheme=None):
     """Set state["band"] in place and return a list of warnings. band_axes: {"Qy": (i, j),
     "Qx": (k, l)} 0-based atom indices; scheme: "axes" (default with axes) or "heme" (Q and
     Soret in the plane of the two axes).

@@ -319,6 +319,14 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
         timings[f"density_{code}_s"] = round(time.perf_counter() - t, 2)
     t = time.perf_counter()
     out = []
+    # a reference whose TDA has states at or below zero is not the ground state: say so
+    ref_warnings = {code: [w for w in (res_ref.get("band_warnings") or [])
+                           if w.startswith("reference:")]
+                    for code, (_rec, res_ref, _arrays) in dens.items()}
+    ref_warnings = {c: w for c, w in ref_warnings.items() if w}
+    for code, ws in ref_warnings.items():
+        for w in ws:
+            log.warning("%s: %s", code, w)
     # one potential per pigment type and band: its density's fit is shared by every copy
     exact_within = el.get("survey_exact_within_A")
     potentials, mols = {}, {}
@@ -387,6 +395,7 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
             "charges_exact": sum(v.n_exact for v in potentials.values()),
             "charges_fitted": sum(v.n_fitted for v in potentials.values()),
             "protonation": report.to_dict(orient="records"), "pigments": out,
+            "reference_warnings": ref_warnings,
             "timings_s": timings}
 
 
