@@ -32,7 +32,6 @@ BUTADIENE = (["C", "C", "C", "C", "H", "H", "H", "H", "H", "H"],
 
 def main():
     import numpy as np
-    import pandas as pd
     from pyscf.scf import jk
     from siteshift.interactions.couplings import HARTREE2CM1, charge_coupling, couple, cross_coulomb
     from siteshift.interactions.transitions import (
@@ -128,13 +127,8 @@ def main():
               f"({row['err_dipole_pct']:+.2f} %) cm-1; exact {t_exact:.2f} s, tdc "
               f"{t_tdc * 1000:.1f} ms, charges {t_chg * 1e6:.0f} µs, all three "
               f"{t_all * 1000:.1f} ms", flush=True)
-    df = pd.DataFrame(rows)
-    out = ROOT / args.tsv
-    out.parent.mkdir(parents=True, exist_ok=True)
-    if out.exists():
-        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
-    df.to_csv(out, sep="\t", index=False)
-    print(f"appended to {out}")
+    from response_speed import append_rows
+    append_rows(ROOT / args.tsv, rows)
 
 
 if __name__ == "__main__":

@@ -27,8 +27,7 @@ sys.path.insert(0, str(ROOT / "scripts" / "benchmarks"))
 
 def main():
     import numpy as np
-    import pandas as pd
-    from response_speed import system
+    from response_speed import append_rows, system
     from siteshift.base.units import HARTREE2EV
     from siteshift.qm.embedding import PointCharges, first_order_shifts
     from siteshift.qm.fasttda import fast_response
@@ -86,14 +85,7 @@ def main():
            "ratio": round(out["ao"][1] / out["mo"][1], 2), "max_dP": d,
            "max_dshift_mev": ds, "host": platform.node(),
            "date": time.strftime("%Y-%m-%d %H:%M")}
-    path = ROOT / args.tsv
-    path.parent.mkdir(parents=True, exist_ok=True)
-    df = pd.DataFrame([row])
-    if path.exists():
-        df = pd.concat([pd.read_csv(path, sep="\t"), df], ignore_index=True)
-    df.to_csv(path, sep="\t", index=False)
-    print(f"appended to {path}")
-
+    append_rows(ROOT / args.tsv, [row])
 
 if __name__ == "__main__":
     main()

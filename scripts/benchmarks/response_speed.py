@@ -245,6 +245,7 @@ def append_rows(out, rows):
     union of the columns."""
     import pandas as pd
     out = Path(out)
+    out.parent.mkdir(parents=True, exist_ok=True)
     df = pd.DataFrame(rows)
     n = len(df)
     if out.exists():
@@ -368,14 +369,7 @@ def main():
                    **prov)
         rows.append(row)
         print(json.dumps(row, indent=1), flush=True)
-    out = ROOT / args.tsv
-    out.parent.mkdir(parents=True, exist_ok=True)
-    import pandas as pd
-    df = pd.DataFrame(rows)
-    if out.exists():  # earlier rows may have other columns
-        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
-    df.to_csv(out, sep="\t", index=False)
-    print(f"appended to {out}")
+    append_rows(ROOT / args.tsv, rows)   # earlier rows may have other columns
 
 
 if __name__ == "__main__":

@@ -101,12 +101,8 @@ def main():
         print(f"mean SCF cycles per extra point, {start}: {c:.2f} "
               f"({100 * (1 - c / ref):.0f} % fewer than the default guess's {ref:.2f}); "
               f"response products per point {d.response_products.mean():.2f}")
-    out = ROOT / args.tsv
-    out.parent.mkdir(parents=True, exist_ok=True)
-    if out.exists():  # earlier rows may have fewer columns
-        df = pd.concat([pd.read_csv(out, sep="\t"), df], ignore_index=True)
-    df.to_csv(out, sep="\t", index=False)
-    print(f"appended to {out}")
+    from response_speed import append_rows
+    append_rows(ROOT / args.tsv, df)   # earlier rows may have fewer columns
 
 
 if __name__ == "__main__":
