@@ -182,9 +182,9 @@ def cmd_electrostatics(args):
     if args.verbose:
         setup_logging()
     qm = {"preset": args.preset, "omega": args.omega}
+    exact = args.exact_within if args.exact_within >= 0 else None    # negative: all exact
     el = {"ph": args.ph, "screening": args.screening, "smearing_A": args.smearing,
-          "unknown_residues": args.unknown, "survey_exact_within_A": (args.exact_within if args.exact_within >= 0
-                                                   else None)}
+          "unknown_residues": args.unknown, "survey_exact_within_A": exact}
     res = survey_structure(args.structure, _library(args), qm, pigment=args.pigment,
                            eps_static=args.eps_static, eps_optical=args.eps_optical, el=el,
                            cache_dir=args.cache, altloc=args.altloc, top=args.top,

@@ -231,8 +231,9 @@ class DensityPotential:
     to keep the density's Cartesian moments up to ``MOMENT_ORDER`` exactly, so its far field
     is the true one up to higher multipoles: measured on the relaxed n→π* difference density
     of formaldehyde/6-31G, the largest relative error over points at 12 / 20 Å from the
-    centroid was 2e-3 / 7e-4 unconstrained-to-quadrupole, 4.2e-4 / 1.4e-4 to order 3 and
-    7e-5 / 4e-5 to order 4. exact_within_A None (or inf) keeps every point exact.
+    centroid was 2e-3 / 7e-4 with the moments kept to order 2, 4.2e-4 / 1.4e-4 to order 3 and
+    7e-5 / 4e-5 to order 4 (unconstrained, on the unrelaxed density: 4.5e-3 / 3.6e-3: the fit
+    missed its dipole by ~0.5 %). exact_within_A None (or inf) keeps every point exact.
     shared: a dict kept between densities of the same molecule (auxiliary basis, metric and
     moments are computed once).
 

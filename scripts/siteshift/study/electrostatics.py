@@ -232,7 +232,7 @@ def _contacts(charges: pd.DataFrame, rec: dict, embedded: set) -> list:
 
 def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None,
                      eps_optical=None, el=None, cache_dir="siteshift_cache", altloc=None,
-                     top=10, axial_ligands=False):
+                     top=10, axial_ligands=None):
     """First-order electrostatic shift of every pigment of a structure, by residue, with one
     relaxed difference density per pigment type (computed once in a uniform continuum and kept
     in cache_dir; its SCF starts from the type's gas-phase ESP-charge density, same model and
@@ -241,8 +241,9 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     Every copy's charges (all atoms but its own pigment) are moved into the frame of the
     type's reference copy by the least-squares superposition of the two QM models' heavy atoms
     (Kabsch), so a copy whose geometry differs from the reference's is approximated by the
-    reference's density (the RMSD is reported). axial_ligands: the metal's coordinating side
-    chains join each QM model (their charges then leave the embedding set)."""
+    reference's density (the RMSD is reported). axial_ligands (None: extract.axial_ligands,
+    as the workflow): the metal's coordinating side chains join each QM model (their charges
+    then leave the embedding set)."""
     from ..structures.ligands import add_axial_ligands
 
     from ..structures.inventory import model_for, pigment_residues
@@ -250,6 +251,8 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     from ..structures.reading import read_structure
     from .stages import model_record
     el = fill(el, "electrostatics")
+    if axial_ligands is None:       # as the workflow's QM models
+        axial_ligands = bool(default("extract.axial_ligands"))
     diel_default = default("dielectric")
     eps_s = float(eps_static if eps_static is not None else diel_default["eps_uniform"])
     eps_o = float(eps_optical if eps_optical is not None else min(diel_default["eps_optical"],
