@@ -175,8 +175,8 @@ class FastTDA:
         blk = max(50, int(2e8 // (nao * nao)))
         # the SCF's (μν|g) table where it kept one (FactoredPCM; the response continuum is a
         # copy on the same surface): PCM set-up 12-15 s instead of 18-21 s on heme b (19HC)
-        table = sol._t if isinstance(sol, FactoredPCM) and \
-            getattr(sol, "_t_key", None) is not None and sol._table() is not None else None
+        kept = isinstance(sol, FactoredPCM) and getattr(sol, "_t_key", None) is not None
+        table = sol._table() if kept else None
         for p0, p1 in lib.prange(0, ng, blk):
             if table is not None:
                 v = lib.unpack_tril(np.ascontiguousarray(table[:, p0:p1].T, dtype=np.float64))
@@ -228,8 +228,8 @@ class FastTDA:
         return acc.reshape(no, nx, nv).transpose(1, 0, 2)
 
     def _coulomb(self, xs, factor):
-        """factor · [(ia|jb) + Vᵀ M V (PCM, fitted or from surface integrals)] x: two matrix products over B_ov viewed as
-        (naux, o·v) (the A matrix has factor 2, A + B factor 4)."""
+        """factor · [(ia|jb) + Vᵀ M V (PCM, fitted or from surface integrals)] x: two matrix
+        products over B_ov viewed as (naux, o·v) (the A matrix has factor 2, A + B factor 4)."""
         bov = self.Bov.reshape(len(self.Bov), -1)
         t = xs.reshape(len(xs), -1) @ bov.T
         coef = factor * t

@@ -323,13 +323,12 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
     t = time.perf_counter()
     out = []
     # a reference whose TDA has states at or below zero is not the ground state: say so
-    ref_warnings = {code: [w for w in (res_ref.get("band_warnings") or [])
-                           if w.startswith("reference:")]
-                    for code, (_rec, res_ref, _arrays) in dens.items()}
-    ref_warnings = {c: w for c, w in ref_warnings.items() if w}
-    for code, ws in ref_warnings.items():
-        for w in ws:
-            log.warning("%s: %s", code, w)
+    ref_warnings = {}
+    for code, (_rec, res_ref, _arrays) in dens.items():
+        for w in res_ref.get("band_warnings") or []:
+            if w.startswith("reference:"):
+                ref_warnings.setdefault(code, []).append(w)
+                log.warning("%s: %s", code, w)
     # one potential per pigment type and band: its density's fit is shared by every copy
     exact_within = el.get("survey_exact_within_A")
     potentials, mols = {}, {}
@@ -343,12 +342,9 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
             if key in arrays:
                 potentials[code, band] = DensityPotential(mol, arrays[key], exact_within,
                                                           shared=shared)
-    done = 0
-    n_copies = sum(1 for pid, (p, _m) in models.items()
-                   if not (pigment and pid != pigment) and p.code in dens)
-    for pid, (p, m) in models.items():
-        if (pigment and pid != pigment) or p.code not in dens:
-            continue
+    copies = [(pid, p, m) for pid, (p, m) in models.items()
+              if not (pigment and pid != pigment) and p.code in dens]
+    for done, (pid, p, m) in enumerate(copies, start=1):
         rec_ref, res_ref, arrays = dens[p.code]
         rec = model_record(m, library[p.code], structure)
         common = [n for n, o in zip(rec["names"], rec["origin"]) if o == "structure"
@@ -386,9 +382,8 @@ def survey_structure(structure, library, qm: dict, pigment=None, eps_static=None
                 ("; add the metal's ligands to the QM model (--axial-ligands)"
                  if not axial_ligands else "")]
             log.warning("%s: %s", pid, out[-1]["warnings"][0])
-        done += 1
-        log.info("attribution: %s (%d of %d), %d charges, %.1f s so far", pid, done, n_copies,
-                 len(pc), time.perf_counter() - t)
+        log.info("attribution: %s (%d of %d), %d charges, %.1f s so far", pid, done,
+                 len(copies), len(pc), time.perf_counter() - t)
     timings["attribution_s"] = round(time.perf_counter() - t, 2)
     timings["total_s"] = round(time.perf_counter() - t0, 2)
     return {"structure": str(structure), "eps_static": eps_s, "eps_optical": eps_o,
