@@ -10,24 +10,35 @@ neglected: the Coulomb-only exciton model), the rotational strength
 
 (the exciton-chirality formula, common practice; e.g. Somsen, van Grondelle, van Amerongen,
 Biophys. J. 71, 1934 (1996), from memory), with λ₀ the wavelength of the mean site energy, so
-that Σ_k R_k = 0 exactly (Σ_k c_ik c_jk = δ_ij). In a.u. π/λ₀ = E₀/(2c); R is reported in
-debye · Bohr magneton (D·μB; 1 a.u. of magnetic moment = 2 μB). Participation ratio
+that Σ_k R_k = 0 exactly (Σ_k c_ik c_jk = δ_ij). The formula is in Gaussian units: with μ in
+debye and r, λ₀ in Å it gives R in D² (1e-36 esu² cm²), reported in debye · Bohr magneton
+(1 D² = 107.8 D·μB, :data:`siteshift.base.units.DMUB_PER_D2`). Participation ratio
 PR_k = 1/Σ_i c_ik⁴ (1: one site; N: spread evenly over N sites).
 
 Spectra: sticks broadened by a Gaussian of the configured homogeneous FWHM, averaged over
 Monte Carlo draws of Gaussian site-energy disorder (configured FWHM, seeded). The absorption is
-the dipole-strength density (D² per eV; absorbance ∝ E × it) and the CD the rotational-strength
-density (D·μB per eV; Δε ∝ E × it), so the area of the absorption is the total dipole strength
-(conserved by the coupling: Σ_k |μ_k|² = Σ_i |μ_i|²).
+the dipole-strength density (D² per eV) and the CD the rotational-strength density (D·μB per
+eV), so the area of the absorption is the total dipole strength (conserved by the coupling:
+Σ_k |μ_k|² = Σ_i |μ_i|²). Beside them, the decadic molar absorptivity ε and circular dichroism
+Δε (M⁻¹ cm⁻¹) that a measured spectrum is given in: D = 9.186e-3 ∫ε/ν̃ dν̃ (D²) and
+R = 0.2476 ∫Δε/ν̃ dν̃ (D·μB) (common practice; see :mod:`siteshift.base.units`), i.e.
+ε(E) = E · A(E) / 9.186e-3 and Δε(E) = E · CD(E) / 0.2476 with A and CD the densities per eV.
+No local-field or refractive-index factor of a medium is applied (the molecules in vacuum).
 """
 from __future__ import annotations
 
 import numpy as np
 from pyscf.data import nist
 
-from ..base.units import EV2CM1, HARTREE2EV, NM_EV
+from ..base.units import (
+    D2_PER_EPS_BAND,
+    DMUB_PER_D2,
+    DMUB_PER_DEPS_BAND,
+    EV2CM1,
+    HARTREE2EV,
+    NM_EV,
+)
 
-AU2DMUB = nist.AU2DEBYE * 2.0      # D·μB per a.u. of rotational strength
 FWHM2SIGMA = 1.0 / (2.0 * np.sqrt(2.0 * np.log(2.0)))
 
 
@@ -45,9 +56,8 @@ def hamiltonian(energies_ev, couplings_cm1) -> np.ndarray:
 
 
 def rotational_prefactor(energies_ev) -> float:
-    """π/λ₀ in a.u. (bohr⁻¹) at the mean site energy."""
-    e0 = float(np.mean(energies_ev)) / HARTREE2EV
-    return e0 / (2.0 * nist.LIGHT_SPEED)
+    """π/λ₀ (Å⁻¹) at the mean site energy."""
+    return float(np.pi / (NM_EV / float(np.mean(energies_ev)) * 10.0))
 
 
 def exciton_states(energies_ev, couplings_cm1, dipoles_debye, centres_A) -> dict:
@@ -72,8 +82,8 @@ def exciton_states(energies_ev, couplings_cm1, dipoles_debye, centres_A) -> dict
 
 def rotational_strengths(c, dipoles_debye, centres_A, energies_ev) -> np.ndarray:
     """R_k (D·μB) of the Coulomb-only exciton model (see the module docstring)."""
-    mu = np.asarray(dipoles_debye, float) / nist.AU2DEBYE
-    r = np.asarray(centres_A, float) / nist.BOHR
+    mu = np.asarray(dipoles_debye, float)
+    r = np.asarray(centres_A, float)
     n = len(mu)
     X = np.zeros((n, n))
     for i in range(n):
@@ -81,8 +91,30 @@ def rotational_strengths(c, dipoles_debye, centres_A, energies_ev) -> np.ndarray
             if i != j:
                 X[i, j] = (r[i] - r[j]) @ np.cross(mu[i], mu[j])
     pref = rotational_prefactor(energies_ev)
-    # Σ_{i<j} = half the full double sum (X is symmetric)
-    return 0.5 * pref * np.einsum("ik,ij,jk->k", c, X, c) * AU2DMUB
+    # Σ_{i<j} = half the full double sum (X is symmetric); Å⁻¹ · Å · D² = D²
+    return 0.5 * pref * np.einsum("ik,ij,jk->k", c, X, c) * DMUB_PER_D2
+
+
+def supermolecular_rotational_strengths(dipoles_au, magnetic_au) -> np.ndarray:
+    """R_k (D·μB) of a whole-system response from its transition moments in PySCF's
+    conventions (``pyscf.tdscf.rhf``): μ_k = ⟨0|r|k⟩ (bohr) and m_k = Im⟨0|L|k⟩ (ħ, about one
+    origin). With the electron's μ̂ = −r and m̂ = −L/(2c) (Gaussian atomic units),
+    R = Im(⟨0|μ̂|k⟩·⟨k|m̂|0⟩) = −μ_k·m_k/(2c) in (e a₀)², then D² (× AU2DEBYE²) and D·μB.
+    For the origin-independent velocity form pass ⟨0|∇|k⟩/ω_k as ``dipoles_au``."""
+    mu = np.asarray(dipoles_au, float)
+    m = np.asarray(magnetic_au, float)
+    r_au = -np.einsum("kx,kx->k", mu, m) / (2.0 * nist.LIGHT_SPEED)
+    return r_au * nist.AU2DEBYE ** 2 * DMUB_PER_D2
+
+
+def absorptivity(energy_ev, absorption_D2_per_ev) -> np.ndarray:
+    """Decadic molar absorptivity ε (M⁻¹ cm⁻¹) of a dipole-strength density (D²/eV)."""
+    return np.asarray(energy_ev) * np.asarray(absorption_D2_per_ev) / D2_PER_EPS_BAND
+
+
+def circular_dichroism(energy_ev, cd_DmuB_per_ev) -> np.ndarray:
+    """Δε (M⁻¹ cm⁻¹) of a rotational-strength density (D·μB/eV)."""
+    return np.asarray(energy_ev) * np.asarray(cd_DmuB_per_ev) / DMUB_PER_DEPS_BAND
 
 
 def energy_grid(energies_ev, margin_ev=0.6, points=1200) -> np.ndarray:
@@ -98,9 +130,9 @@ def _broaden(grid, centres, weights, fwhm_ev):
 
 def spectra(energies_ev, couplings_cm1, dipoles_debye, centres_A, homogeneous_fwhm_cm1=300.0,
             disorder_fwhm_cm1=0.0, samples=1, seed=1, grid=None) -> dict:
-    """Absorption (D²/eV) and CD (D·μB/eV) on an energy grid (eV), averaged over `samples`
-    draws of Gaussian site-energy disorder (FWHM in cm⁻¹; none when 0), with the uncoupled
-    sites' absorption for comparison."""
+    """Absorption (D²/eV; ε in M⁻¹ cm⁻¹) and CD (D·μB/eV; Δε in M⁻¹ cm⁻¹) on an energy grid
+    (eV), averaged over `samples` draws of Gaussian site-energy disorder (FWHM in cm⁻¹; none
+    when 0), with the uncoupled sites' absorption for comparison."""
     E = np.asarray(energies_ev, float)
     grid = energy_grid(E) if grid is None else np.asarray(grid, float)
     fwhm = float(homogeneous_fwhm_cm1) / EV2CM1
@@ -117,6 +149,9 @@ def spectra(energies_ev, couplings_cm1, dipoles_debye, centres_A, homogeneous_fw
         absorb += _broaden(grid, st["energies_ev"], st["dipole_strength_D2"], fwhm)
         cd += _broaden(grid, st["energies_ev"], st["rotational_strength_DmuB"], fwhm)
         mono += _broaden(grid, Ek, (mu ** 2).sum(1), fwhm)
+    absorb, cd, mono = absorb / n, cd / n, mono / n
     return {"energy_ev": grid, "wavelength_nm": NM_EV / grid, "wavenumber_cm1": grid * EV2CM1,
-            "absorption_D2_per_ev": absorb / n, "cd_DmuB_per_ev": cd / n,
-            "monomer_absorption_D2_per_ev": mono / n, "samples": n}
+            "absorption_D2_per_ev": absorb, "cd_DmuB_per_ev": cd,
+            "epsilon_M1cm1": absorptivity(grid, absorb),
+            "delta_epsilon_M1cm1": circular_dichroism(grid, cd),
+            "monomer_absorption_D2_per_ev": mono, "samples": n}

@@ -43,6 +43,26 @@ def transition_densities(mo_coeff, mo_occ, xs, symmetric=True) -> np.ndarray:
     return 0.5 * (T + T.transpose(0, 2, 1))
 
 
+def transition_moments(mol, mo_coeff, mo_occ, xs, energies_ev) -> dict:
+    """Electric and magnetic transition moments of closed-shell TDA states (atomic units, in
+    ``pyscf.tdscf.rhf``'s conventions, which this reproduces from the transition densities):
+    ``length`` ⟨0|r|k⟩, ``velocity`` ⟨0|∇|k⟩/ω_k (equal to the length form for exact states;
+    origin-independent with the magnetic moment), ``magnetic`` Im⟨0|L|k⟩, all about the
+    nuclear-charge centre. Amplitudes xs (nstates, nocc, nvir) normalised as Σ X² = 1."""
+    from ..base.units import HARTREE2EV
+    T = transition_densities(mo_coeff, mo_occ, xs, symmetric=False)
+    charges = mol.atom_charges()
+    centre = charges @ mol.atom_coords() / charges.sum()
+    with mol.with_common_orig(centre):
+        r = mol.intor_symmetric("int1e_r", comp=3)
+        rxnabla = mol.intor("int1e_cg_irxp", comp=3, hermi=2)     # ⟨μ|r × ∇|ν⟩
+    nabla_bra = mol.intor("int1e_ipovlp", comp=3)                   # ⟨∇μ|ν⟩ = −⟨μ|∇|ν⟩
+    omega = np.asarray(energies_ev, float) / HARTREE2EV
+    return {"length": np.einsum("xmn,smn->sx", r, T),
+            "velocity": -np.einsum("xmn,smn->sx", nabla_bra, T) / omega[:, None],
+            "magnetic": -np.einsum("xmn,smn->sx", rxnabla, T)}
+
+
 def make_auxmol(mol, auxbasis=DEFAULT_AUXBASIS):
     return df.make_auxmol(mol, auxbasis)
 

@@ -226,6 +226,8 @@ def coupling_tables(exciton_files, out_couplings, out_states, out_spectra, dimer
                              "wavenumber_cm1": sp["wavenumber_cm1"][i],
                              "absorption_D2_per_ev": sp["absorption_D2_per_ev"][i],
                              "cd_DmuB_per_ev": sp["cd_DmuB_per_ev"][i],
+                             "epsilon_M1cm1": sp["epsilon_M1cm1"][i],
+                             "delta_epsilon_M1cm1": sp["delta_epsilon_M1cm1"][i],
                              "monomer_absorption_D2_per_ev":
                                  sp["monomer_absorption_D2_per_ev"][i],
                              "samples": sp["samples"]})

@@ -275,8 +275,9 @@ def plot_exciton_states(exciton_files, out_png, out_svg=None, group="all"):
 
 
 def plot_exciton_spectra(exciton_files, out_png, out_svg=None, group="all"):
-    """Absorption and CD of each variant's exciton states (nm), with the exciton and monomer
-    sticks."""
+    """Absorption (ε) and CD (Δε), M⁻¹ cm⁻¹, of each variant's exciton states against
+    wavelength, with the exciton and monomer sticks."""
+    from ..interactions.excitons import absorptivity, circular_dichroism
     res = [read_json(f) for f in exciton_files]
     fig, (a1, a2) = plt.subplots(2, 1, figsize=(6, 5.2), sharex=True)
     for r in res:
@@ -284,29 +285,30 @@ def plot_exciton_spectra(exciton_files, out_png, out_svg=None, group="all"):
         if not g:
             continue
         sp, st = g["spectra"], g["states"]
+        grid = np.asarray(sp["energy_ev"])
         nm = np.asarray(sp["wavelength_nm"])
-        line, = a1.plot(nm, sp["absorption_D2_per_ev"], label=f"{r['variant']} exciton")
-        a1.plot(nm, sp["monomer_absorption_D2_per_ev"], ls=":", color=line.get_color(),
-                label=f"{r['variant']} uncoupled")
-        a2.plot(nm, sp["cd_DmuB_per_ev"], color=line.get_color(), label=r["variant"])
+        eps = absorptivity(grid, sp["absorption_D2_per_ev"])
+        deps = circular_dichroism(grid, sp["cd_DmuB_per_ev"])
+        line, = a1.plot(nm, eps, label=f"{r['variant']} exciton")
+        a1.plot(nm, absorptivity(grid, sp["monomer_absorption_D2_per_ev"]), ls=":",
+                color=line.get_color(), label=f"{r['variant']} uncoupled")
+        a2.plot(nm, deps, color=line.get_color(), label=r["variant"])
         e = np.asarray(st["energies_ev"])
-        scale = max(np.max(sp["absorption_D2_per_ev"]), 1e-12) / max(
-            max(st["dipole_strength_D2"]), 1e-12)
-        a1.vlines(NM_EV / e, 0, np.asarray(st["dipole_strength_D2"]) * scale * 0.5,
-                  color=line.get_color(), lw=1.5)
+        d = np.asarray(st["dipole_strength_D2"])
+        scale = max(np.max(eps), 1e-12) / max(d.max(), 1e-12)
+        a1.vlines(NM_EV / e, 0, d * scale * 0.5, color=line.get_color(), lw=1.5)
         ms = np.asarray(g["site_energies_ev"])
         a1.plot(NM_EV / ms, np.zeros_like(ms), "v", color=line.get_color(), ms=5)
         rs = np.asarray(st["rotational_strength_DmuB"])
-        cd_scale = max(np.max(np.abs(sp["cd_DmuB_per_ev"])), 1e-12) / max(np.abs(rs).max(),
-                                                                           1e-12)
+        cd_scale = max(np.max(np.abs(deps)), 1e-12) / max(np.abs(rs).max(), 1e-12)
         a2.vlines(NM_EV / e, 0, rs * cd_scale * 0.5, color=line.get_color(), lw=1.5)
-    a1.set_ylabel("dipole strength density (D²/eV)")
-    a2.set_ylabel("rotational strength density\n(D·μB/eV)")
+    a1.set_ylabel("ε (M⁻¹ cm⁻¹)")
+    a2.set_ylabel("Δε (M⁻¹ cm⁻¹)")
     a2.axhline(0, color="k", lw=0.6)
     a2.set_xlabel("wavelength (nm)")
     a1.legend(fontsize=7, frameon=False)
-    a1.set_title(f"Exciton absorption and CD ({group}); sticks: exciton states (half height), "
-                 "▼ site energies", fontsize=8)
+    a1.set_title(f"Exciton absorption and CD ({group}), molecules in vacuum (no local-field "
+                 "factor);\nsticks: exciton states (half height), ▼ site energies", fontsize=8)
     _save(fig, out_png, out_svg)
 
 
