@@ -37,6 +37,7 @@ rule couple_pigments:
         f"{BENCH}/couple_pigments/{{variant}}.tsv"
     params:
         couplings=COUPLINGS,
+        pigments=config["pigments"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

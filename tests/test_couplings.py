@@ -356,3 +356,58 @@ def test_variant_stage_groups_and_dipole_rescaling(monomer, tmp_path):
     # the degenerate pair's exciton states are split by 2|J|
     pair = states[states.group == "pair"].sort_values("energy_cm1")
     assert np.ptp(pair.energy_cm1) == pytest.approx(2 * abs(J[0, 1]), abs=0.2)  # 6 digits
+
+
+def test_library_dipole_strengths_rescale_couplings_by_default(monomer, tmp_path):
+    # The library's measured dipole strengths (BChl a Qy 37.1 D², Chl a Qy ≈ 21 D² in vacuum:
+    # Knox & Spring, Photochem. Photobiol. 77, 497 (2003), from memory) rescale a site's
+    # coupled band by default; `false` keeps the computed dipole; another band keeps its own;
+    # the tables keep the computed dipole and unscaled couplings beside the scaled ones.
+    import json
+
+    from siteshift.structures.library import LibraryError, load_library
+    from siteshift.study.couplings import COUPLING_COLUMNS, excitons_stage
+    lib = load_library()
+    assert lib["BCL"].dipole_strength_D2 == {"Qy": pytest.approx(37.1)}
+    assert 20.0 <= lib["CLA"].dipole_strength_D2["Qy"] <= 21.5
+    assert "Knox" in lib["BCL"].dipole_strength_source
+    with pytest.raises(LibraryError, match="dipole_strength_source"):
+        load_library(extra={"BCL": {"dipole_strength_source": ""}})
+    with pytest.raises(LibraryError, match="positive"):
+        load_library(extra={"CLA": {"dipole_strength_D2": {"Qy": -3}}})
+    st, _mol, _r, k = monomer
+    mu2 = float(np.sum(st.dipole_debye(k) ** 2))
+
+    def run(band, setting, name):
+        sites, jsons, envs = [], [], []
+        for n, shift in enumerate(([0, 0, 0], [0, 0, 8.0])):
+            s = _moved(st, np.array(shift, float))
+            s.pigment_id, s.ccd_code = f"A_BCL{n + 1}", "BCL"
+            s.save(tmp_path / f"{name}{n}.npz")
+            sites.append(str(tmp_path / f"{name}{n}.npz"))
+            states = [{"index": i + 1, "energy_ev": float(e), "band": band if i == k else None}
+                      for i, e in enumerate(st.energies_ev)]
+            (tmp_path / f"{name}s{n}.json").write_text(json.dumps({"states": states}))
+            (tmp_path / f"{name}e{n}.json").write_text(
+                json.dumps({"dielectric": {"eps_optical": 2.0}}))
+            jsons.append(str(tmp_path / f"{name}s{n}.json"))
+            envs.append(str(tmp_path / f"{name}e{n}.json"))
+        cfg = {} if setting is None else {"dipole_strength_D2": setting}
+        return excitons_stage(sites, jsons, envs, tmp_path / f"{name}.json", cfg, variant="v",
+                              library=lib)
+
+    default, off = run("Qy", None, "d"), run("Qy", False, "o")
+    other_band, mapped = run("Qx", None, "x"), run("Qy", {"BCL": 4.0 * mu2}, "m")
+    f = np.sqrt(37.1 / mu2)
+    c, c0 = default["couplings"][0], off["couplings"][0]
+    assert c["dipole_scale_a"] == pytest.approx(f) and c0["dipole_scale_a"] == 1.0
+    assert c["mu_a_debye"] ** 2 == pytest.approx(37.1)
+    assert c["mu_a_computed_debye"] ** 2 == pytest.approx(mu2)
+    assert c["j_tdc_cm1"] == pytest.approx(f * f * c0["j_tdc_cm1"], rel=1e-9)
+    assert c["j_tdc_unscaled_cm1"] == pytest.approx(c0["j_tdc_cm1"], rel=1e-9)
+    assert "Knox" in default["sites"][0]["dipole_strength_source"]
+    assert other_band["couplings"][0]["dipole_scale_a"] == 1.0
+    assert mapped["couplings"][0]["dipole_scale_a"] == pytest.approx(2.0)
+    # the exciton states' strengths follow the rescaled dipoles: Σ D = 2 × 37.1 D²
+    assert sum(default["groups"]["all"]["states"]["dipole_strength_D2"]) == pytest.approx(74.2)
+    assert {"mu_a_computed_debye", "j_tdc_unscaled_cm1"} <= set(COUPLING_COLUMNS)

@@ -6,13 +6,15 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+import numpy as np
+
 
 def cmd_couple(args):
     """Couplings of two sites' transitions by the three routes (and the dimer computed whole)."""
     from ..base.io import read_json, write_json
     from ..interactions.couplings import couple
     from ..study.config import qm_settings
-    from ..study.couplings import cached_transitions, pick_state
+    from ..study.couplings import cached_transitions, measured_dipole_strength, pick_state
     from ..study.stages import cached_excite, setup_logging
     from pathlib import Path
     if args.verbose:
@@ -32,8 +34,23 @@ def cmd_couple(args):
     picks = []
     for res, want in zip(results, args.states or ["auto", "auto"]):
         picks.append(None if want == "all" else [pick_state(res["states"], want)["index"] - 1])
+    scales = [1.0, 1.0]
+    if all(p is not None for p in picks):
+        from ..structures.library import load_library
+        library = load_library(getattr(args, "library", None))
+        for i, (st, res, p) in enumerate(zip(sites, results, picks)):
+            band = next((x.get("band") for x in res["states"] if x["index"] == p[0] + 1), None)
+            d2, why = measured_dipole_strength(st.ccd_code, band, args.dipole_strength, library)
+            if d2 is not None:
+                scales[i] = float(np.sqrt(d2) / np.linalg.norm(st.dipole_debye(p[0])))
+                print(f"{st.pigment_id}: transition dipole rescaled x{scales[i]:.3f} to "
+                      f"{d2:.1f} D^2 ({why})", file=sys.stderr)
+    elif args.dipole_strength != "off":
+        print("note: with --states all the computed transition dipoles are used (a measured "
+              "dipole strength belongs to one band)", file=sys.stderr)
     rows = couple(sites[0], sites[1], picks[0], picks[1], screening=args.screening,
-                  eps_optical=args.eps_optical)
+                  eps_optical=args.eps_optical, dipole_scale_a=scales[0],
+                  dipole_scale_b=scales[1])
     print(f"{'state_a':>8s} {'state_b':>8s} {'R_A':>7s} {'kappa':>7s} {'mu_a_D':>7s} "
           f"{'mu_b_D':>7s} {'J_tdc':>9s} {'J_charges':>9s} {'J_dipole':>9s}  cm-1 "
           f"(screening {args.screening}, x{rows[0]['screening_factor']:.3f})")
@@ -147,6 +164,10 @@ def add_pair_commands(add):
     scr = default("couplings.screening.model")
     p.add_argument("--screening", choices=["optical", "distance", "none"], default=scr,
                    help=f"screening of the couplings (default {scr})")
+    p.add_argument("--dipole-strength", choices=["library", "off"], default="library",
+                   help="rescale each coupled band's transition density to the pigment "
+                        "library's measured dipole strength where it has one (library, the "
+                        "default) or keep the computed dipoles (off)")
     p.add_argument("--dimer", action="store_true",
                    help="also compute the two sites in one supermolecular TDA and compare")
     _cache_and_json(p, "the couplings (and dimer)")

@@ -12,13 +12,19 @@ AO basis is monomer A's followed by monomer B's, so the blocks are the monomers'
 normalised TDA transition density has ⟨T|T⟩_S = 2). The two states with the largest
 c_A² + c_B² form the pair; their splitting gives the supermolecular coupling
 |J| = √((ΔE/2)² − ((E_A − E_B)/2)²), its sign from c_A c_B of the upper state.
+
+Each dimer state also carries its rotational strength (D·μB) from the whole system's
+transition moments (:func:`siteshift.interactions.transitions.transition_moments`), in the
+length form (⟨0|r|k⟩ with the magnetic moment about the nuclear-charge centre) and the
+origin-independent velocity form, to set beside the exciton model's couplet.
 """
 from __future__ import annotations
 
 import numpy as np
 
 from ..base.units import EV2CM1
-from .transitions import transition_densities
+from .excitons import supermolecular_rotational_strengths
+from .transitions import transition_densities, transition_moments
 
 
 def fragment_omega(S, T, nao_a) -> np.ndarray:
@@ -42,6 +48,10 @@ def analyse_dimer(mol, response, energies_ev, osc, nao_a, mono_a, mono_b, e_a, e
                              symmetric=False)
     S = mol.intor_symmetric("int1e_ovlp")
     A, B = slice(0, nao_a), slice(nao_a, None)
+    tm = transition_moments(mol, response["mo_coeff"], response["mo_occ"], response["xs"],
+                            energies_ev)
+    rot_len = supermolecular_rotational_strengths(tm["length"], tm["magnetic"])
+    rot_vel = supermolecular_rotational_strengths(tm["velocity"], tm["magnetic"])
     states = []
     for k, Tk in enumerate(T):
         om = fragment_omega(S, Tk, nao_a)
@@ -52,6 +62,8 @@ def analyse_dimer(mol, response, energies_ev, osc, nao_a, mono_a, mono_b, e_a, e
                        "share_a": float(om[0, 0]), "share_b": float(om[1, 1]),
                        "charge_transfer": float(om[0, 1] + om[1, 0]),
                        "ct_a_to_b": float(om[0, 1]), "ct_b_to_a": float(om[1, 0]),
+                       "rotational_strength_DmuB": float(rot_len[k]),
+                       "rotational_strength_velocity_DmuB": float(rot_vel[k]),
                        "c_a": ca, "c_b": cb})
     weight = [s["c_a"] ** 2 + s["c_b"] ** 2 for s in states]
     pair = sorted(np.argsort(weight)[::-1][:2])

@@ -30,6 +30,8 @@ class PigmentType:
     ligation_states: dict = field(default_factory=dict)   # {"HIS+HIS": {charge, multiplicity}}
     links: tuple = ()             # covalent links to a protein residue (see config/pigments.yaml)
     drop_h: tuple = ()            # CCD hydrogens left out (a deprotonated form)
+    dipole_strength_D2: dict = field(default_factory=dict)   # {band: measured D²}
+    dipole_strength_source: str = ""
 
     @property
     def spin(self) -> int:
@@ -79,7 +81,18 @@ def _entry(code: str, d: dict, source: str) -> PigmentType:
                       "drop_h": list(ln.get("drop_h") or []),
                       "partner_h": int(ln.get("partner_h", 0)),
                       "max_A": float(ln.get("max_A", 1.9)), "charge": int(ln["charge"])})
-    return PigmentType(code=code, band_scheme=scheme, ligation_states=states, links=tuple(links),
+    strengths = d.get("dipole_strength_D2") or {}
+    if not isinstance(strengths, dict) or not all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0
+            for v in strengths.values()):
+        raise LibraryError(f"{where}: dipole_strength_D2 must map band names to positive "
+                           f"dipole strengths in D² (e.g. {{Qy: 37.1}}), got {strengths!r}")
+    if strengths and not str(d.get("dipole_strength_source") or "").strip():
+        raise LibraryError(f"{where}: dipole_strength_D2 needs dipole_strength_source (where "
+                           "the measured value comes from)")
+    return PigmentType(code=code, band_scheme=scheme,
+                       dipole_strength_D2={str(k): float(v) for k, v in strengths.items()},
+                       dipole_strength_source=str(d.get("dipole_strength_source") or ""), ligation_states=states, links=tuple(links),
                        drop_h=tuple(d.get("drop_h") or ()),
                        name=str(d.get("name", code)), family=d["family"],
                        charge=int(d["charge"]), multiplicity=int(d["multiplicity"]),

@@ -31,8 +31,10 @@ log = logging.getLogger("siteshift")
 
 COUPLING_COLUMNS = ["variant", "pigment_a", "pigment_b", "band_a", "band_b", "state_a",
                     "state_b", "energy_a_ev", "energy_b_ev", "distance_A", "kappa",
-                    "mu_a_debye", "mu_b_debye", "j_tdc_cm1", "j_charges_cm1", "j_dipole_cm1",
+                    "mu_a_debye", "mu_b_debye", "mu_a_computed_debye", "mu_b_computed_debye",
+                    "j_tdc_cm1", "j_charges_cm1", "j_dipole_cm1",
                     "j_tdc_vacuum_cm1", "j_charges_vacuum_cm1", "j_dipole_vacuum_cm1",
+                    "j_tdc_unscaled_cm1", "j_charges_unscaled_cm1", "j_dipole_unscaled_cm1",
                     "screening_model", "screening_factor", "dipole_scale_a", "dipole_scale_b",
                     "route_used"]
 STATE_COLUMNS = ["variant", "group", "state", "energy_ev", "energy_cm1", "wavelength_nm",
@@ -112,29 +114,50 @@ def transitions_stage(site_json, model_json, out_npz, cache_dir, auxbasis=None):
     return st
 
 
-def _dipole_scale(st: SiteTransitions, k, measured: dict) -> float:
-    d2 = measured.get(st.ccd_code)
-    if not d2:
-        return 1.0
-    return float(np.sqrt(d2) / np.linalg.norm(st.dipole_debye(k)))
+def measured_dipole_strength(ccd_code, band, setting, library) -> tuple[float | None, str]:
+    """(D², source) of a measured dipole strength for a site's coupled band, or (None, why
+    not) — by ``couplings.dipole_strength_D2``: 'library' (the pigment library's sourced value
+    for that band), false/'off' (none), or {CCD: D²} (for the coupled band, on top of the
+    library's)."""
+    if setting is False or setting == "off":
+        return None, "off (couplings.dipole_strength_D2)"
+    if isinstance(setting, dict) and setting.get(ccd_code):
+        return float(setting[ccd_code]), "couplings.dipole_strength_D2 in the study config"
+    entry = (library or {}).get(ccd_code)
+    values = getattr(entry, "dipole_strength_D2", {}) or {}
+    if band in values:
+        return float(values[band]), entry.dipole_strength_source
+    return None, (f"no measured value for {ccd_code} {band or 'this band'} in the pigment "
+                  "library")
 
 
 def excitons_stage(transition_files, site_jsons, environment_jsons, out_json, cfg=None,
-                   variant=None):
+                   variant=None, library=None):
     """Couplings, exciton states and spectra of one variant's sites."""
+    from ..structures.library import load_library
     cp = fill(cfg, "couplings")
+    library = load_library() if library is None else library
     t0 = time.perf_counter()
     sites = [SiteTransitions.load(f) for f in transition_files]
     results = [io.read_json(f) for f in site_jsons]
     eps_opt = [io.read_json(f)["dielectric"]["eps_optical"] for f in environment_jsons]
     chosen = [pick_state(r["states"], cp["band"]) for r in results]
     ks = [c["index"] - 1 for c in chosen]
-    scales = [_dipole_scale(s, k, cp["dipole_strength_D2"]) for s, k in zip(sites, ks)]
-    for s, k, f in zip(sites, ks, scales):
-        if f != 1.0:
-            log.info("%s: transition dipole %.2f D rescaled by %.3f to the configured dipole "
-                     "strength %.1f D²", s.pigment_id, np.linalg.norm(s.dipole_debye(k)), f,
-                     cp["dipole_strength_D2"][s.ccd_code])
+    scales, sources = [], []
+    for s, k, c in zip(sites, ks, chosen):
+        d2, why = measured_dipole_strength(s.ccd_code, c.get("band"), cp["dipole_strength_D2"],
+                                           library)
+        computed = float(np.linalg.norm(s.dipole_debye(k)))
+        f = 1.0 if d2 is None else float(np.sqrt(d2) / computed)
+        scales.append(f)
+        sources.append(why)
+        if d2 is None:
+            log.info("%s: computed transition dipole %.2f D (%.1f D²) kept: %s", s.pigment_id,
+                     computed, computed ** 2, why)
+        else:
+            log.info("%s: transition dipole %.2f D (%.1f D²) rescaled by %.3f to the measured "
+                     "dipole strength %.1f D² (%s)", s.pigment_id, computed, computed ** 2, f,
+                     d2, why)
     scr = cp["screening"]
     n = len(sites)
     rows, J = [], np.zeros((n, n))
@@ -186,10 +209,13 @@ def excitons_stage(transition_files, site_jsons, environment_jsons, out_json, cf
                {"pigment_id": s.pigment_id, "ccd_code": s.ccd_code, "state": k + 1,
                 "band": c.get("band"), "energy_ev": c["energy_ev"],
                 "dipole_debye": (s.dipole_debye(k) * f).tolist(), "dipole_scale": f,
+                "dipole_computed_debye": s.dipole_debye(k).tolist(),
+                "dipole_strength_source": why,
                 "centre_A": s.centre_A(k).tolist(), "eps_optical": e,
                 "transition_charge_rms_hartree": float(s.charge_rms[k]),
                 "mode": r.get("mode", "continuum"), "qm_hash": s.qm_hash}
-               for s, k, c, f, e, r in zip(sites, ks, chosen, scales, eps_opt, results)],
+               for s, k, c, f, e, r, why in zip(sites, ks, chosen, scales, eps_opt, results,
+                                                 sources)],
            "couplings": rows, "groups": out_groups, "spectra_settings": sp,
            "time_s": round(time.perf_counter() - t0, 3)}
     io.write_json(out_json, out)
@@ -244,7 +270,9 @@ DIMER_COLUMNS = ["variant", "dimer", "pigment_a", "pigment_b", "band", "eps_stat
                  "eps_optical", "energy_a_ev", "energy_b_ev", "dimer_state_lower",
                  "dimer_state_upper", "energy_lower_ev", "energy_upper_ev", "splitting_cm1",
                  "j_supermolecular_cm1", "j_tdc_cm1", "model_splitting_cm1",
-                 "intensity_ratio_upper_lower", "charge_transfer_lower",
+                 "intensity_ratio_upper_lower", "rot_lower_DmuB", "rot_upper_DmuB",
+                 "rot_velocity_lower_DmuB", "rot_velocity_upper_DmuB",
+                 "model_rot_lower_DmuB", "model_rot_upper_DmuB", "charge_transfer_lower",
                  "charge_transfer_upper", "share_a_lower", "share_a_upper", "pair_weight_min",
                  "time_s"]
 
@@ -282,7 +310,12 @@ def dimer_at(recs, qm: dict, eps_s, eps_o, omega, cp: dict, cache_dir=None, labe
     out, res = excite_dimer(*[(r["elements"], r["coords_A"], r["charge"]) for r in recs], s,
                             resp[0], resp[1], ks[0], ks[1], log=log.info)
     lo, up = model_pair(row["energy_a_ev"], row["energy_b_ev"], row["j_tdc_vacuum_cm1"])
-    out.update(pigments=[r["pigment_id"] for r in recs], band=cp["band"],
+    j = row["j_tdc_vacuum_cm1"]
+    model = exciton_states([row["energy_a_ev"], row["energy_b_ev"]], [[0.0, j], [j, 0.0]],
+                           [st.dipole_debye(k) for st, k in zip(sites, ks)],
+                           [st.centre_A(k) for st, k in zip(sites, ks)])
+    out.update(model_rotational_strength_DmuB=model["rotational_strength_DmuB"].tolist(),
+               pigments=[r["pigment_id"] for r in recs], band=cp["band"],
                eps_static=eps_s, eps_optical=eps_o, monomer_states=[k + 1 for k in ks],
                monomer_energies_ev=[row["energy_a_ev"], row["energy_b_ev"]],
                coupling=row, model_pair_ev=[lo, up], model_splitting_cm1=(up - lo) * EV2CM1,
@@ -362,6 +395,14 @@ def dimer_rows(dimer_files) -> pd.DataFrame:
                      "j_tdc_cm1": d["coupling"]["j_tdc_vacuum_cm1"],
                      "model_splitting_cm1": d["model_splitting_cm1"],
                      "intensity_ratio_upper_lower": d["intensity_ratio_upper_lower"],
+                     "rot_lower_DmuB": lo.get("rotational_strength_DmuB"),
+                     "rot_upper_DmuB": up.get("rotational_strength_DmuB"),
+                     "rot_velocity_lower_DmuB": lo.get("rotational_strength_velocity_DmuB"),
+                     "rot_velocity_upper_DmuB": up.get("rotational_strength_velocity_DmuB"),
+                     "model_rot_lower_DmuB": (d.get("model_rotational_strength_DmuB")
+                                              or [None, None])[0],
+                     "model_rot_upper_DmuB": (d.get("model_rotational_strength_DmuB")
+                                              or [None, None])[1],
                      "charge_transfer_lower": lo["charge_transfer"],
                      "charge_transfer_upper": up["charge_transfer"],
                      "share_a_lower": lo["share_a"], "share_a_upper": up["share_a"],
