@@ -13,6 +13,7 @@ checkpoint take_inventory:
         pigments=config["pigments"],
         overrides=config["pigment_overrides"],
         checks=config["structure_checks"],
+        axial_ligands=config["extract"]["axial_ligands"],
     conda:
         "../config/envs/siteshift.yaml"
     script:

@@ -9,4 +9,5 @@ setup_logging(snakemake.log[0])  # noqa: F821
 inventory_stage(snakemake.input.structure, snakemake.output.tsv, snakemake.output.json,  # noqa: F821
                 library=load_library(extra=snakemake.params.pigments),  # noqa: F821
                 altloc=snakemake.params.altloc, overrides=snakemake.params.overrides,  # noqa: F821
-                checks=snakemake.params.checks)  # noqa: F821
+                checks=snakemake.params.checks,  # noqa: F821
+                axial_ligands=snakemake.params.axial_ligands)  # noqa: F821

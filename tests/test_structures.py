@@ -265,3 +265,35 @@ def test_19hc_every_heme_gets_its_two_his_by_default(hc19, library):
     hem = [r for r in rows if r["ccd_code"] == "HEM"]
     assert all(r["metal_donors"].count("HIS") == 2 for r in hem)
     assert all("HIS+HIS" in r["problems"] and "multiplicity 2" in r["problems"] for r in hem)
+
+
+def test_metal_donors_outside_the_qm_model_are_flagged(hc19, library, tmp_path):
+    # A donor at bonding distance of the metal that stays outside the QM model acts as point
+    # charges ~2 Å from it: the inventory lists it (donors_outside_qm, problems) and the study
+    # summary turns it into a warning. 19HC's His donors join the QM model by default (none
+    # flagged); with extract.axial_ligands off all 36 are flagged, 2 per heme.
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from siteshift.structures.inventory import INVENTORY_COLUMNS, outside_donors
+    from siteshift.study.summary import summary_rows
+    on = [r for r in take_inventory(hc19, library) if r["ccd_code"] == "HEM"]
+    assert all(r["donors_outside_qm"] == "" for r in on)
+    off = [r for r in take_inventory(hc19, library, axial_ligands=False)
+           if r["ccd_code"] == "HEM"]
+    assert all(r["donors_outside_qm"].count("HIS") == 2 for r in off)
+    assert all("stay outside the QM model" in r["problems"] for r in off)
+    # a backbone carbonyl on a Mg (as a Leu C=O on a bacteriochlorophyll): no fragment rule,
+    # flagged whatever extract.axial_ligands says; a His Nε2 joins the model
+    leu = {"residue": "L:LEU153", "atom": "O", "distance_A": 2.05, "kind": "backbone O",
+           "_atom": SimpleNamespace(resname="LEU")}
+    his = {"residue": "L:HIS173", "atom": "NE2", "distance_A": 2.1, "kind": "side chain",
+           "_atom": SimpleNamespace(resname="HIS")}
+    assert outside_donors([leu, his], library["BCL"]) == [leu]
+    assert outside_donors([leu, his], library["BCL"], axial_ligands=False) == [leu, his]
+    inv = tmp_path / "inventory.tsv"
+    pd.DataFrame(off, columns=INVENTORY_COLUMNS).to_csv(inv, sep="\t", index=False)
+    rows = summary_rows({"v": inv}, [])
+    assert len(rows) == 18
+    assert rows.reason.str.startswith("warning: ").all()

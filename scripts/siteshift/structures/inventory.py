@@ -3,14 +3,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from .ligands import add_link, find_link, ligation_key, metal_donors
+from .ligands import _joins_qm, add_link, find_link, ligation_key, metal_donors
 from .qmmodel import ModelError, build_qm_model
 from .reading import classify, is_amino_acid, residues_of
 
 INVENTORY_COLUMNS = ["pigment_id", "ccd_code", "chain", "resid", "icode", "status", "n_atoms_read",
                      "n_heavy_read", "n_atoms_qm", "formula_qm", "charge", "multiplicity",
                      "altlocs", "rebuilt_atoms", "min_contact_A", "metal_donors",
-                     "assembly_interface", "problems"]
+                     "donors_outside_qm", "assembly_interface", "problems"]
 
 #: heavy atoms of a pigment and of its environment closer than this (Å) clash: two conformer
 #: states mixed, or a misplaced atom (common practice: non-bonded heavy-atom contacts in
@@ -108,8 +108,17 @@ def clashes(atoms, res, clash_A=CLASH_A, index=None):
     return out, (out[0][2] if out else closest)
 
 
+def outside_donors(donors, ptype, axial_ligands=True) -> list[dict]:
+    """The metal donors that stay outside the QM model (extract.axial_ligands off, or no
+    fragment rule for them: backbone carbonyls, formyl-Met, other ligands): their atoms then act
+    on the site as point charges about 2 Å from the metal, a shift of tens to hundreds of meV
+    that is an artefact of the cut, not a prediction."""
+    return [d for d in donors if not (axial_ligands and _joins_qm(
+        ptype.axial_ligand_atoms or {}, str(d["_atom"].resname).upper(), d["atom"]))]
+
+
 def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A,
-                   on_clash="error", rebuild_missing=True):
+                   on_clash="error", rebuild_missing=True, axial_ligands=True):
     """A list of row dicts (see INVENTORY_COLUMNS), pigments first, then unsupported ligands.
 
     altlocs: read_structure's report (which conformer each pigment kept); clash_A / on_clash:
@@ -117,6 +126,8 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
     an error ("error") or a problem noted ("warn"); rebuild_missing: atoms of the QM model
     missing from the structure are rebuilt from the CCD (True) or the pigment is "partial" and
     not computed (False); either way every copy of a type has the same QM formula.
+    axial_ligands: as extract.axial_ligands (which metal donors will join the QM model); the
+    others are listed in ``donors_outside_qm`` and noted as a problem.
     """
     if on_clash not in CLASH_ACTIONS:
         raise ValueError(f"on_clash {on_clash!r} not one of {CLASH_ACTIONS}")
@@ -157,6 +168,19 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
             donors = metal_donors(m, env)
             row["metal_donors"] = ", ".join(f"{d['residue']} {d['atom']} {d['distance_A']:.2f}"
                                             for d in donors)
+            outside = outside_donors(donors, library[r.code], axial_ligands)
+            row["donors_outside_qm"] = ", ".join(
+                f"{d['residue']} {d['atom']} ({d['kind']}) {d['distance_A']:.2f}"
+                for d in outside)
+            if outside:
+                notes.append(
+                    f"metal donor(s) {row['donors_outside_qm']} A stay outside the QM model "
+                    "and act as point charges at bonding distance of the metal (an artefact "
+                    "of tens to hundreds of meV); "
+                    + ("turn on extract.axial_ligands" if not axial_ligands else
+                       "the library has no fragment rule for them (backbone carbonyls, "
+                       "formyl-Met, other ligands): read this site's embedded shift and its "
+                       "residue attribution with that in mind"))
             lig = ligation_key(library[r.code], donors)
             st = library[r.code].ligation_states.get(lig)
             ov = (overrides or {}).get(r.id, {})
@@ -173,6 +197,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                                              if status != "partial" or "rebuilt" not in p)]))
         except ModelError as exc:
             row.update(status="error", n_atoms_qm=0, formula_qm="", charge=None, metal_donors="",
+                       donors_outside_qm="",
                        multiplicity=None, problems="; ".join([str(exc), *([clash] if clash
                                                                           else []), *notes]))
         rows.append(row)
@@ -182,6 +207,7 @@ def take_inventory(atoms, library, overrides=None, altlocs=None, clash_A=CLASH_A
                      "n_heavy_read": len(r.atoms), "n_atoms_qm": 0, "formula_qm": "",
                      "charge": None, "multiplicity": None, "altlocs": "",
                      "rebuilt_atoms": "", "min_contact_A": None, "metal_donors": "",
+                     "donors_outside_qm": "",
                      "assembly_interface": "",
                      "problems": f"{r.code} is not in the pigment library; add an entry under "
                                  "`pigments:` in the study config to include it"})

@@ -66,6 +66,8 @@ def summary_rows(inventories: dict, results: list, codes=()) -> pd.DataFrame:
                 st, why = "skipped", f"{r['ccd_code']} not in pigment_codes"
             elif st == "ok":
                 st = "selected"
+                if r.get("donors_outside_qm"):      # the inventory's problems say which
+                    why = f"warning: {why}"
             elif st == "unsupported":
                 st, why = "skipped", why or "not in the pigment library"
             else:
