@@ -1,4 +1,5 @@
 """End to end: the whole Snakemake DAG on a tiny study in a temporary directory."""
+import json
 import shutil
 import subprocess
 import sys
@@ -435,3 +436,38 @@ def test_in_silico_mutant_variant(root, tmp_path):
     inv = pd.read_csv(tmp_path / "results/fx/inventory.tsv", sep="\t")
     assert list(inv.pigment_id) == ["A_HC4101", "B_HC4101"]
     assert "GLU A   6" in (tmp_path / "results/fx/structure.pdb").read_text()
+
+
+def test_geometry_modes_in_the_workflow(root, tmp_path):
+    # extract.geometry at the demo preset (tiny basis): type_reference optimises one HC4 model
+    # (the reference's first copy, GFN2-xTB) and places it on both copies of both variants, so
+    # the wild type's and the mutant's chain-B site share their QM inputs; relaxed optimises
+    # a copy with its heavy atoms restrained. Each site reports its geometry and RMSD.
+    cfg = _tiny_config(root)
+    cfg["extract"]["geometry"] = "type_reference"
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    sites = [f"results/{v}/pigments/{p}/excited_states.json" for v in ("wt", "A_I6E")
+             for p in ("A_HC4101", "B_HC4101")]
+    p = _snakemake(root, tmp_path, *sites)
+    assert p.returncode == 0, p.stderr[-3000:]
+    ref = json.loads((tmp_path / "results/geometry/HC4.json").read_text())
+    assert ref["pigment_id"] == "A_HC4101" and ref["optimisation"]["converged"]
+    recs = {s: json.loads((tmp_path / s).read_text()) for s in sites}
+    for r in recs.values():
+        assert r["geometry"]["mode"] == "type_reference"
+        assert 0.0 < r["geometry"]["rmsd_heavy_A"] < 0.5
+    models = [json.loads((tmp_path / f"results/{v}/pigments/B_HC4101/qm_model.json")
+                         .read_text()) for v in ("wt", "A_I6E")]
+    assert models[0]["coords_A"] == models[1]["coords_A"]
+    assert recs[sites[1]]["qm_hash"] == recs[sites[3]]["qm_hash"]
+    assert (tmp_path / "results/wt/pigments/A_HC4101/crystal_model.json").exists()
+    cfg["extract"]["geometry"] = "relaxed"
+    (tmp_path / "config/config.yaml").write_text(yaml.safe_dump(cfg))
+    p = _snakemake(root, tmp_path, "results/wt/pigments/A_HC4101/qm_model.json")
+    assert p.returncode == 0, p.stderr[-3000:]
+    rec = json.loads((tmp_path / "results/wt/pigments/A_HC4101/qm_model.json").read_text())
+    g = rec["geometry"]
+    assert g["mode"] == "relaxed" and g["optimisation"]["converged"]
+    assert g["optimisation"]["restraint_kcal_mol_A2"] == 10.0
+    assert 0.0 < g["rmsd_heavy_A"] < 0.3

@@ -38,7 +38,8 @@ from ..environment.charges import (ChargeSettings, assign_charges, residue_key,
 from ..qm.embedding import DensityPotential, PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
 from ..qm.settings import EngineError
-from .stages import cached_excite, density_path, site_settings, site_start, study_omega
+from .stages import (cached_excite, density_path, geometry_note, site_settings, site_start,
+                     study_omega)
 
 log = logging.getLogger("siteshift")
 ELECTRO = default("electrostatics")
@@ -196,7 +197,8 @@ def embedded_stage(model_json, environment_json, charges_tsv, out_json, qm: dict
     out = dict(emb)
     out.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                qm_hash=h_emb, mode="embedded", dielectric_source=diel["source"],
-               tuning=str(tuning_json) if tuning_json else "fixed")
+               tuning=str(tuning_json) if tuning_json else "fixed",
+               geometry=geometry_note(rec))
     out["electrostatics"] = {
         "screening": el["screening"], "eps_screening": screening_eps(el, diel),
         "charge_scale": pc.scale, "cavity": el["cavity"], "eps_static_cavity":

@@ -176,6 +176,14 @@ def extract_stage(structure, pigment_id, out_xyz, out_model, out_cluster, librar
     return rec
 
 
+def geometry_note(rec: dict) -> dict:
+    """What a site's coordinates are (extract.geometry) and how far from the crystal."""
+    g = rec.get("geometry") or {}
+    return {"mode": g.get("mode", "crystal"), "level": g.get("level"),
+            "rmsd_heavy_A": float(g.get("rmsd_heavy_A", 0.0)),
+            "reference": g.get("reference")}
+
+
 def _record_xyz(rec: dict) -> str:
     lines = [str(len(rec["elements"])),
              f"{rec['pigment_id']} {rec['ccd_code']} charge={rec['charge']} "
@@ -547,7 +555,8 @@ def excite_stage(model_json, environment_json, out_json, qm: dict, tuning_json=N
                                                         cache_dir=cache_dir))
     result.update(pigment_id=rec["pigment_id"], ccd_code=rec["ccd_code"], variant=variant,
                   qm_hash=h, dielectric_source=diel["source"], mode="continuum",
-                  tuning=str(tuning_json) if tuning_json else "fixed")
+                  tuning=str(tuning_json) if tuning_json else "fixed",
+                  geometry=geometry_note(rec))
     io.write_json(out_json, result)
     for s in result["states"]:
         log.info("  S%d %.4f eV %.1f nm f=%.4f %s", s["index"], s["energy_ev"],

@@ -21,7 +21,8 @@ log = logging.getLogger("siteshift")
 SITE_COLUMNS = ["variant", "mode", "pigment_id", "ccd_code", "chain", "band", "state_index", "energy_ev",
                 "wavelength_nm", "oscillator_strength", "transition_dipole_debye",
                 "eps_static", "eps_optical", "eps_screen", "alpha", "omega_bohr_inv", "basis",
-                "response", "solvation", "scf_cycles", "scf_start", "qm_hash"]
+                "response", "solvation", "scf_cycles", "scf_start", "geometry",
+                "geometry_rmsd_A", "qm_hash"]
 
 
 #: A target curve varying by less than this over the scanned ε is reported as flat: SCF runs
@@ -51,6 +52,8 @@ def site_rows(result: dict) -> list:
             "response": result["response"]["method"], "solvation": result["solvation"],
             "scf_cycles": result.get("scf_cycles"),
             "scf_start": describe_start(result.get("scf_start")),
+            "geometry": (result.get("geometry") or {}).get("mode", "crystal"),
+            "geometry_rmsd_A": (result.get("geometry") or {}).get("rmsd_heavy_A", 0.0),
             "qm_hash": result.get("qm_hash")})
     return rows
 
