@@ -3,7 +3,8 @@ import sys
 
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.qm.settings import configure_threads
-from siteshift.study.stages import setup_logging, type_geometry_stage
+from siteshift.study.geometry import type_geometry_stage
+from siteshift.study.stages import setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

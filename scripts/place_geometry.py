@@ -4,7 +4,8 @@ import sys
 sys.path.insert(0, snakemake.scriptdir)  # noqa: F821 (this checkout's library first)
 from siteshift.qm.settings import configure_threads
 from siteshift.structures.library import load_library
-from siteshift.study.stages import place_geometry_stage, setup_logging
+from siteshift.study.geometry import place_geometry_stage
+from siteshift.study.stages import setup_logging
 
 sm = snakemake  # noqa: F821
 setup_logging(sm.log[0])

@@ -38,8 +38,8 @@ from ..environment.charges import (ChargeSettings, assign_charges, residue_key,
 from ..qm.embedding import DensityPotential, PointCharges, first_order_shifts
 from ..qm.scf import build_molecule
 from ..qm.settings import EngineError
-from .stages import (cached_excite, density_path, geometry_note, site_settings, site_start,
-                     study_omega)
+from .geometry import geometry_note
+from .stages import cached_excite, density_path, site_settings, site_start, study_omega
 
 log = logging.getLogger("siteshift")
 ELECTRO = default("electrostatics")
