@@ -232,8 +232,18 @@ def test_coupling_outputs(study):
         rot = g.rotational_strength_DmuB
         assert abs(rot.sum()) < 1e-6 + 1e-6 * rot.abs().sum()
     sp = pd.read_csv(study / "results/tables/exciton_spectra.tsv", sep="\t")
-    assert {"wavelength_nm", "wavenumber_cm1", "absorption_D2_per_ev", "cd_DmuB_per_ev"} <= set(
-        sp.columns)
+    assert {"wavelength_nm", "wavenumber_cm1", "absorption_D2_per_ev", "cd_DmuB_per_ev",
+            "epsilon_M1cm1", "delta_epsilon_M1cm1"} <= set(sp.columns)
+    # ε and Δε (M⁻¹ cm⁻¹) are the densities times E over the band-integral constants
+    # (D = 9.186e-3 ∫ε/ν̃ dν̃, R = 0.2476 ∫Δε/ν̃ dν̃; common practice)
+    assert np.allclose(sp.epsilon_M1cm1, sp.energy_ev * sp.absorption_D2_per_ev / 9.186e-3,
+                       rtol=1e-3, atol=1e-6)
+    assert np.allclose(sp.delta_epsilon_M1cm1, sp.energy_ev * sp.cd_DmuB_per_ev / 0.24763,
+                       rtol=1e-3, atol=1e-6)
+    # the couplings table keeps the computed dipoles and unscaled couplings (HC4 has no
+    # measured dipole strength in the library: the two are equal)
+    assert np.allclose(c.mu_a_debye, c.mu_a_computed_debye)
+    assert np.allclose(c.j_tdc_cm1, c.j_tdc_unscaled_cm1)
     for name in ("couplings", "exciton_states", "exciton_spectra"):
         assert (study / f"results/plots/{name}.png").stat().st_size > 1000
     assert (study / "results/wt/pigments/A_HC4101/transitions.npz").exists()
@@ -246,6 +256,9 @@ def test_coupling_outputs(study):
     assert (d[["charge_transfer_lower", "charge_transfer_upper"]] < 0.05).all().all()
     assert (d.splitting_cm1 > 0).all()
     assert (d.splitting_cm1 <= 1.2 * d.model_splitting_cm1 + 5.0).all()
+    # the pair's rotational strengths, supermolecular and from the exciton model, are reported
+    assert d[["rot_lower_DmuB", "rot_upper_DmuB", "model_rot_lower_DmuB",
+              "model_rot_upper_DmuB"]].notna().all().all()
     # the dimer's SCF started from its monomers' orbitals; over the sweep, the monomers of the
     # second point from the first point's
     import json
