@@ -118,18 +118,20 @@ def optimise(elements, coords_A, charge=0, multiplicity=1, level="gfn2", setting
             g = g.copy()
             g[idx] += k * d
         trace["n"] += 1
+        trace.setdefault("e0", e)          # the start (no restraint energy at x0)
         trace["e"], trace["gmax"] = e, float(np.abs(g).max())
         if trace["n"] % 10 == 0:
             log.info("%s geometry (%s): step %d, E %.8f Eh, max |g| %.2e Eh/bohr", label,
                      level, trace["n"], e, trace["gmax"])
         return e, g.ravel()
 
-    e_start = engine(x0)[0]
     res = minimize(fun, x0.ravel(), jac=True, method="L-BFGS-B",
                    options={"maxiter": max_steps, "gtol": gtol, "ftol": 1e-14,
                             "maxcor": 30})
     x = res.x.reshape(-1, 3)
-    converged = trace["gmax"] is not None and trace["gmax"] <= gtol
+    e_start = trace["e0"]
+    trace["gmax"] = float(np.abs(res.jac).max())      # at the accepted point
+    converged = trace["gmax"] <= gtol
     heavy = [i for i, e in enumerate(elements) if e != "H"]
     rec = {"level": level, "energy_hartree": float(res.fun), "start_energy_hartree": e_start,
            "steps": int(trace["n"]), "max_gradient": trace["gmax"], "gtol": gtol,
