@@ -306,9 +306,15 @@ def test_19hc_charges_his_states_and_links(hc19_path, library):
     assert residue_totals(act).round(6).eq(-1).all()
     tot = residue_totals(charges)
     assert np.allclose(tot, np.round(tot), atol=1e-4)
-    # what did not get a charge is said: the hemes' dropped propionate atoms
+    # the hemes' cut-off propionates keep their charge (carboxylates at pH 7: −1 e each, on
+    # O1A/O2A and O1D/O2D), what carries none is said
     pig = report[report.kind == "pigment"]
-    assert len(pig) == 18 and pig.note.str.contains("dropped atoms").all()
+    assert len(pig) == 18 and pig.note.str.contains("other dropped atoms").all()
+    assert pig.note.str.contains("-2 e on O1A O1D O2A O2D").all()
+    hem = charges[charges.resname == "HEM"]
+    tail = hem[hem.source == "tail:HEM"]
+    assert len(tail) == 72 and np.allclose(tail.charge_e, -0.5)
+    assert np.allclose(residue_totals(hem), -2.0, atol=1e-6)   # the fake ESP fit sums to 0
 
 
 def test_site_charges_leave_out_the_site_and_keep_ligand_residue_totals(hc19_path, library):
@@ -325,13 +331,18 @@ def test_site_charges_leave_out_the_site_and_keep_ligand_residue_totals(hc19_pat
                           atoms[~np.isin(atoms.indices, res.atoms.indices)])
     rec = model_record(m, library["HEM"], hc19_path)
     coords, q, keys, notes = site_charges(charges, rec)
-    assert "A:HEM301" not in keys and len(notes) == 2
+    assert len(notes) == 3
     for tag in ("A:HIS37", "A:HIS51"):
         sel = [k == tag for k in keys]
         assert abs(np.asarray(q)[sel].sum()) < 1e-9
         assert sum(sel) == 6   # N H CA HA C O left, side chain in the QM
+    # the site's own cut-off propionates stay (4 oxygens, −2 e), 1.5 Å or more from the model
+    own = [k == "A:HEM301" for k in keys]
+    assert sum(own) == 4 and np.asarray(q)[own].sum() == pytest.approx(-2.0)
+    tail_note = [n for n in notes if "cut-off tail" in n][0]
+    assert float(tail_note.split("closest QM atom ")[1].split()[0]) >= 1.5
     assert len(q) == len(charges) - sum(charges.resname.eq("HEM") & charges.resid.eq(301)
-                                        & charges.chain.eq("A")) - 2 * 11
+                                        & charges.chain.eq("A")) + 4 - 2 * 11
 
 
 def test_survey_refuses_open_shell_models_and_flags_bonded_charges(hc19_path, tmp_path, capsys):
@@ -417,3 +428,24 @@ def test_cli_electrostatics_names_the_mutated_residue(root, tmp_path, capsys):
     again = json.loads(out.read_text())
     assert again["timings_s"]["total_s"] < t_first
     assert again["pigments"][0]["bands"] == res["pigments"][0]["bands"]
+
+
+def test_tail_groups_follow_ph():
+    # ionisable groups of cut-off tails (pKa values common practice, from memory): a heme's two
+    # propionic acids are carboxylates at pH 7 (−1 e each) and neutral at pH 3; FMN's phosphate
+    # monoester is −2 e at pH 7, −1 e at pH 6; FAD's pyrophosphate −1 e per P
+    from siteshift.environment.charges import tail_group_charges
+    hem = ["CBA", "CGA", "O1A", "O2A", "CBD", "CGD", "O1D", "O2D"]
+    q7 = tail_group_charges("HEM", hem, 7.0)
+    assert sorted(q7) == ["O1A", "O1D", "O2A", "O2D"] and sum(q7.values()) == -2.0
+    assert tail_group_charges("HEM", hem, 3.0) == {}
+    from siteshift.structures.qmmodel import ccd_graph
+    fmn = [n for n, e in zip(*ccd_graph("FMN")[:2]) if e != "H" and n in
+           ("C2'", "C3'", "C4'", "C5'", "O2'", "O3'", "O4'", "O5'", "P", "O1P", "O2P", "O3P")]
+    assert sum(tail_group_charges("FMN", fmn, 7.0).values()) == pytest.approx(-2.0)
+    assert sum(tail_group_charges("FMN", fmn, 6.0).values()) == pytest.approx(-1.0)
+    fad_heavy = [n for n, e in zip(*ccd_graph("FAD")[:2]) if e != "H"]
+    fad_tail = [n for n in fad_heavy if "'" in n or n.endswith("A") or n.startswith(("P", "O"))
+                and n not in ("O2", "O4")]
+    q = tail_group_charges("FAD", fad_tail, 7.0)
+    assert sum(q.values()) == pytest.approx(-2.0)

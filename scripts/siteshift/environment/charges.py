@@ -11,8 +11,15 @@ Sources, one per kind of residue (every choice is written to the report table):
   2.6 Å keeps that nitrogen unprotonated. Missing heavy atoms of a residue are added by PDBFixer
   (reported); missing residues are not built.
 - pigments of the library: charges fitted to the electrostatic potential of each pigment type's
-  QM model (:mod:`siteshift.qm.esp`), placed on every copy by atom name. Atoms a QM model drops
-  (tails cut at the library's bonds) carry no charge; the cap hydrogens carry theirs.
+  QM model (:mod:`siteshift.qm.esp`), placed on every copy by atom name; the cap hydrogens carry
+  theirs. Atoms a QM model drops (tails cut at the library's bonds) carry none, except the
+  ionisable groups such a tail holds: a carboxylic acid (heme propionates) is a carboxylate,
+  −1 e shared by its two oxygens, above pH 4.5; a phosphate monoester (FMN) −2 e above pH 6.5
+  (else −1), a diester (FAD's pyrophosphate, per P) −1 e, shared by the oxygens bonded to the P
+  alone (pKa values common practice, from memory: propionic acid 4.9, the second pKa of
+  phosphate monoesters 6–7). These tail charges stay in the site's own environment too
+  (``site_charges``), so that a cut does not delete the groups' charge; the cut's link atom
+  carries none, and the cap hydrogen sits ≥ 1.5 Å from any of them (reported when not).
 - ions and other hetero residues: the formal charges of the wwPDB Chemical Component Dictionary
   (biotite's offline copy) on the atoms that carry them.
 - a residue none of these covers: an error naming it (``unknown: error``), or zero charges
@@ -223,7 +230,41 @@ def _protein_charges(residues, settings: ChargeSettings, report, others=()):
     return rows
 
 
-def _pigment_charges(res, library, pigment_charges, overrides, report):
+#: pKa values deciding a pigment tail's ionisable groups (common practice, from memory)
+CARBOXYL_PKA = 4.5
+PHOSPHATE_PKA2 = 6.5
+TAIL_SOURCE = "tail"
+
+
+def tail_group_charges(code, dropped, ph) -> dict:
+    """{atom name: charge e} of the ionisable groups among a pigment's dropped (cut-off) atoms
+    at pH `ph` (see the module docstring); every other dropped atom carries none."""
+    from ..structures.qmmodel import ccd_graph
+    names, elements, _x, adj = ccd_graph(code)
+    elem = dict(zip(names, elements))
+    gone = set(dropped)
+    out = {}
+    for n in gone:
+        if elem.get(n) not in ("C", "P"):
+            continue
+        terminal = sorted(o for o in adj[n] if elem[o] == "O"
+                          and all(b == n or elem[b] == "H" for b in adj[o]))
+        if not terminal or not set(terminal) <= gone:
+            continue
+        if elem[n] == "C" and len(terminal) == 2:
+            q = -1.0 if ph > CARBOXYL_PKA else 0.0
+        elif elem[n] == "P" and len(terminal) == 3:
+            q = -2.0 if ph > PHOSPHATE_PKA2 else -1.0
+        elif elem[n] == "P" and len(terminal) == 2:
+            q = -1.0
+        else:
+            continue
+        for o in terminal:
+            out[o] = q / len(terminal)
+    return {k: v for k, v in out.items() if v}
+
+
+def _pigment_charges(res, library, pigment_charges, overrides, report, ph=_EL["ph"]):
     from ..structures.inventory import model_for
     fit = (pigment_charges or {}).get(res.code)
     if fit is None:
@@ -242,11 +283,25 @@ def _pigment_charges(res, library, pigment_charges, overrides, report):
              "atom": n, "element": e, "x_A": x[0], "y_A": x[1], "z_A": x[2],
              "charge_e": by_name[n], "source": f"esp:{res.code}"}
             for n, e, x in zip(m.names, m.elements, m.coords)]
+    n_model = len(rows)
+    tail = tail_group_charges(res.code, m.dropped, ph)
+    pos = {str(a.name): a.position for a in res.atoms}
+    for n, qn in sorted(tail.items()):
+        x = pos[n]
+        rows.append({"chain": res.chain, "resname": res.code, "resid": res.resid,
+                     "icode": res.icode, "atom": n, "element": "O", "x_A": x[0], "y_A": x[1],
+                     "z_A": x[2], "charge_e": qn, "source": f"{TAIL_SOURCE}:{res.code}"})
+    note = f"total {sum(r['charge_e'] for r in rows[:n_model]):+.3f} e on its QM model's " \
+           f"{n_model} atoms"
+    if tail:
+        note += (f"; its cut-off tail's ionisable groups at pH {ph:g}: {sum(tail.values()):+.0f}"
+                 f" e on {' '.join(sorted(tail))}")
+    rest = [d for d in m.dropped if d not in tail]
+    if rest:
+        note += f"; other dropped atoms {' '.join(rest)} carry none"
     report.append({"chain": res.chain, "resname": res.code, "resid": res.resid,
                    "icode": res.icode, "kind": "pigment", "choice": "ESP-fitted",
-                   "note": f"total {sum(r['charge_e'] for r in rows):+.3f} e on its QM model's "
-                           f"{len(rows)} atoms" + (f"; dropped atoms {' '.join(m.dropped)} carry "
-                                                   "none" if m.dropped else "")})
+                   "note": note})
     return rows
 
 
@@ -321,7 +376,8 @@ def assign_charges(atoms, library, pigment_charges=None, settings: ChargeSetting
         if r.code in settings.residue_charges and r.code not in AMINO_ACIDS:
             rows += _formal_charges(r, settings, report)
         elif classify(r.code, library) == "pigment":
-            rows += _pigment_charges(r, library, pigment_charges, overrides, report)
+            rows += _pigment_charges(r, library, pigment_charges, overrides, report,
+                                     settings.ph)
         elif r.code not in AMINO_ACIDS and r.code not in WATERS:
             rows += _formal_charges(r, settings, report)
     if protein:
@@ -343,7 +399,8 @@ def residue_totals(charges: pd.DataFrame) -> pd.Series:
 def site_charges(charges: pd.DataFrame, record: dict):
     """(coords Å, charges e, residue keys, notes) of the charges a site is embedded in.
 
-    record: the site's QM-model record (``qm_model.json``). Its pigment residue leaves the set;
+    record: the site's QM-model record (``qm_model.json``). Its pigment residue leaves the set,
+    but for the charged groups of its cut-off tail (kept: the cut must not delete them);
     side chains its QM model took (axial ligands, named ``CHAIN:RESNNN:ATOM``) leave it too,
     the atom bonded to the cut is zeroed and the residue's remaining charges are shifted to keep
     its total (see the module docstring)."""
@@ -356,8 +413,16 @@ def site_charges(charges: pd.DataFrame, record: dict):
     df = charges.copy()
     site = (df.chain == chain) & (df.resname == code) & (df.resid == resid) & \
         (df.icode.astype(str) == icode)
-    keep = ~site
+    own_tail = site & df.source.astype(str).str.startswith(f"{TAIL_SOURCE}:")
+    keep = ~site | own_tail
     notes = []
+    if own_tail.any():
+        xt = df.loc[own_tail, ["x_A", "y_A", "z_A"]].to_numpy(float)
+        d = np.linalg.norm(xt[:, None] - np.asarray(record["coords_A"], float)[None], axis=-1)
+        notes.append(f"{pid}: its cut-off tail keeps {df.charge_e[own_tail].sum():+.1f} e on "
+                     f"{' '.join(df.atom[own_tail])}, closest QM atom {d.min():.2f} A"
+                     + (" (under 1.5 A: a charge this close to the model over-polarises it)"
+                        if d.min() < 1.5 else ""))
     ligands = {}
     for name, origin in zip(record["names"], record["origin"]):
         if origin.startswith("ligand_") and name.count(":") == 2:
