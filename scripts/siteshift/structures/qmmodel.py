@@ -89,12 +89,17 @@ class QMModel:
         return self.names.index(name)
 
     def to_xyz(self) -> str:
-        lines = [str(len(self.elements)),
-                 f"{self.pigment_id} {self.code} charge={self.charge} "
-                 f"multiplicity={self.multiplicity} formula={self.formula}"]
-        for e, n, (x, y, z) in zip(self.elements, self.names, self.coords):
-            lines.append(f"{e:<2s} {x:14.6f} {y:14.6f} {z:14.6f}   {n}")
-        return "\n".join(lines) + "\n"
+        return xyz_text(f"{self.pigment_id} {self.code} charge={self.charge} "
+                        f"multiplicity={self.multiplicity} formula={self.formula}",
+                        self.elements, self.names, self.coords)
+
+
+def xyz_text(title, elements, names, coords) -> str:
+    """An XYZ file's text: count, title, then element, x y z (Å) and the atom's name."""
+    lines = [str(len(elements)), title]
+    for e, n, (x, y, z) in zip(elements, names, coords):
+        lines.append(f"{e:<2s} {x:14.6f} {y:14.6f} {z:14.6f}   {n}")
+    return "\n".join(lines) + "\n"
 
 
 def electrons(elements, charge) -> int:

@@ -22,13 +22,11 @@ def geometry_note(rec: dict) -> dict:
 
 
 def _record_xyz(rec: dict) -> str:
-    lines = [str(len(rec["elements"])),
-             f"{rec['pigment_id']} {rec['ccd_code']} charge={rec['charge']} "
-             f"multiplicity={rec['multiplicity']} formula={rec['formula']} "
-             f"geometry={rec.get('geometry', {}).get('mode', 'crystal')}"]
-    for e, n, (x, y, z) in zip(rec["elements"], rec["names"], rec["coords_A"]):
-        lines.append(f"{e:<2s} {x:14.6f} {y:14.6f} {z:14.6f}   {n}")
-    return "\n".join(lines) + "\n"
+    from ..structures.qmmodel import xyz_text
+    return xyz_text(f"{rec['pigment_id']} {rec['ccd_code']} charge={rec['charge']} "
+                    f"multiplicity={rec['multiplicity']} formula={rec['formula']} "
+                    f"geometry={rec.get('geometry', {}).get('mode', 'crystal')}",
+                    rec["elements"], rec["names"], rec["coords_A"])
 
 
 def _geometry_level_settings(level, qm):
